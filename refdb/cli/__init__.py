@@ -1,0 +1,1 @@
+"""The ``refdb`` command line: argument parsing and rendering only, no physics."""

@@ -1,0 +1,84 @@
+"""The ``refdb`` typer application: global options and command registration."""
+
+from __future__ import annotations
+
+import importlib
+import sys
+from typing import Annotated
+
+import typer
+
+from refdb import __version__
+from refdb.cli._common import state
+
+app = typer.Typer(
+    name="refdb",
+    help=(
+        "Powder X-ray diffraction phase identification against an open reference library.\n\n"
+        "Results are screening results: confirm identifications by an independent method. "
+        "Regulated determinations (respirable crystalline silica, asbestos, pharmaceutical "
+        "release) need accredited methods, local codes and licensed practice."
+    ),
+    no_args_is_help=True,
+    add_completion=False,
+    pretty_exceptions_enable=False,
+    context_settings={"help_option_names": ["-h", "--help"]},
+)
+
+#: Command modules, each with a ``register(app)`` function; kept in the order of the help text.
+COMMAND_MODULES = (
+    "refdb.cli.library_cmds",
+    "refdb.cli.structure_cmds",
+    "refdb.cli.scan_cmds",
+    "refdb.cli.search_cmds",
+    "refdb.cli.mixture_cmds",
+    "refdb.cli.demo_cmds",
+)
+
+
+def _version(value: bool) -> None:
+    if value:
+        typer.echo(f"refdb {__version__}")
+        raise typer.Exit()
+
+
+@app.callback()
+def _root(
+    db: Annotated[
+        str | None,
+        typer.Option(
+            "--db",
+            envvar="REFDB_DATABASE",
+            help="Library location: a SQLAlchemy URL (sqlite:///…, postgresql+psycopg://…) or a "
+            "file path. Default: library.sqlite in the user data directory.",
+            show_envvar=True,
+        ),
+    ] = None,
+    debug: Annotated[bool, typer.Option("--debug", help="Show tracebacks for errors.")] = False,
+    version: Annotated[
+        bool,
+        typer.Option("--version", callback=_version, is_eager=True, help="Print the version and exit."),
+    ] = False,
+) -> None:
+    s = state()
+    s.clear()
+    s["db"] = db
+    s["debug"] = debug
+
+
+for _name in COMMAND_MODULES:
+    try:
+        _module = importlib.import_module(_name)
+    except ModuleNotFoundError as _exc:  # a command group not written yet
+        if _exc.name != _name:
+            raise
+        continue
+    _module.register(app)
+
+
+def main() -> None:
+    """Console-script entry point."""
+    try:
+        app()
+    except BrokenPipeError:
+        sys.exit(0)

@@ -1,0 +1,1 @@
+"""Search index, figures of merit, candidate ranking and mixture decomposition."""

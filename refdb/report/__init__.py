@@ -1,0 +1,1 @@
+"""Rendering results: rich tables, plots, JSON/CSV and self-contained HTML reports."""

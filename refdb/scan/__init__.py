@@ -1,0 +1,1 @@
+"""Measured scans: reading, validation, background, peak search and profile fitting."""

@@ -1,0 +1,1 @@
+"""Crystal structures (CIF) to radiation-free reflections and reference patterns."""
