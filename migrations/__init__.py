@@ -1,0 +1,1 @@
+"""Alembic migrations of the refdb library schema (shipped inside the package)."""
