@@ -86,19 +86,26 @@ class ReferenceData:
         normalised, so the same CIF imported twice is one entry; a measured entry is its name,
         formula, wavelength and lines written with fixed precision.
         """
+        if self.kind == "computed" and self.structure_text:
+            return structure_hash(self.structure_text)
         h = hashlib.sha256()
         h.update(self.kind.encode())
-        if self.kind == "computed" and self.structure_text:
-            text = "\n".join(line.rstrip() for line in self.structure_text.splitlines()).strip()
-            h.update(b"\0" + text.encode("utf-8"))
-        else:
-            h.update(f"\0{self.name}\0{self.formula}\0{self.wavelength!r}".encode())
-            inten = self.lines.intensity if self.lines.intensity is not None else np.zeros(len(self.lines))
-            for d, i in zip(self.lines.d, inten, strict=True):
-                h.update(f"\0{d:.6f}:{i:.4f}".encode())
-            if self.lines.hkl is not None:
-                h.update(b"\0hkl" + np.ascontiguousarray(self.lines.hkl, dtype=np.int64).tobytes())
+        h.update(f"\0{self.name}\0{self.formula}\0{self.wavelength!r}".encode())
+        inten = self.lines.intensity if self.lines.intensity is not None else self.lines.f2
+        if inten is None:
+            inten = np.zeros(len(self.lines))
+        for d, i in zip(self.lines.d, inten, strict=True):
+            h.update(f"\0{d:.6f}:{i:.4f}".encode())
+        if self.lines.hkl is not None:
+            h.update(b"\0hkl" + np.ascontiguousarray(self.lines.hkl, dtype=np.int64).tobytes())
         return h.hexdigest()
+
+
+def structure_hash(structure_text: str) -> str:
+    """Content hash of a computed reference: its CIF text with line ends and trailing blanks
+    normalised (so the same file imported twice, or with CRLF line ends, is one entry)."""
+    text = "\n".join(line.rstrip() for line in structure_text.splitlines()).strip()
+    return hashlib.sha256(b"computed\0" + text.encode("utf-8")).hexdigest()
 
 
 @dataclass(frozen=True, eq=False, kw_only=True)

@@ -236,6 +236,15 @@ class Library:
             raise self._guard(exc) from None
 
     # -- reading ------------------------------------------------------------------------
+    def find_hash(self, content_hash: str) -> int | None:
+        """The id of the entry with this content hash, or None."""
+        try:
+            with self._session() as s:
+                found = s.scalar(select(Entry.id).where(Entry.content_hash == content_hash))
+        except SQLAlchemyError as exc:
+            raise self._guard(exc) from None
+        return None if found is None else int(found)
+
     def count(self) -> int:
         try:
             with self._session() as s:
