@@ -1,0 +1,639 @@
+"""Whole-profile refinement of a phase mixture by variable projection.
+
+The calculated scan is
+
+    y_c(2θ) = b(2θ) + Σ_p S_p · Y_p(2θ; θ_p, θ_g)
+
+where ``b`` is an estimated background (SNIP, or one given by the caller) plus a Chebyshev
+polynomial, ``S_p ≥ 0`` the scale factor of phase p and ``Y_p`` its unit-scale profile: every
+line drawn as a pseudo-Voigt for every wavelength of the radiation, with strength
+``m|F|² · LP`` (computed entries) or the observed intensity (measured entries; see
+:mod:`refdb.match._phase_lines`).
+
+Nonlinear parameters: a shared zero shift and sample displacement (or one pair per phase), a
+shared pseudo-Voigt mixing η, and per phase a d-scale (cell dilation, ±2 %), a width factor on
+the shared Caglioti width, and optionally a March–Dollase ratio r. The linear parameters
+(scales and Chebyshev coefficients) are solved exactly inside every evaluation of the
+residual by non-negative least squares — the variable-projection idea of Golub & Pereyra
+(1973, SIAM J. Numer. Anal. 10, 413) with Kaufman's (1975, BIT 15, 49) approximate Jacobian,
+in which the derivative of the linear solution with respect to the nonlinear parameters is
+dropped. The outer problem is solved with :func:`scipy.optimize.least_squares` (trust-region
+reflective, bounded). All residuals are weighted by 1/σ².
+
+Agreement indices follow the usual Rietveld definitions (Young 1993, The Rietveld Method,
+ch. 1; McCusker, Von Dreele, Cox, Louër & Scardi 1999, J. Appl. Cryst. 32, 36):
+``Rwp = √(Σ w (y − y_c)² / Σ w y²)``, ``Rexp = √(ν / Σ w y²)``, GoF = χ²/ν with
+ν = points − parameters.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+
+import numpy as np
+from scipy.optimize import least_squares, nnls
+
+from refdb.errors import InputError
+from refdb.geometry import lorentz_polarisation, peak_shift
+from refdb.match._phase_lines import PhaseLines, march_dollase_factor, phase_lines
+from refdb.profiles import caglioti_fwhm, pseudo_voigt
+from refdb.radiation import Radiation, two_theta_from_d
+from refdb.records import ReferenceData
+from refdb.scan.types import Scan
+
+#: Caglioti U, V, W (deg²) used when nothing better is known: about 0.08° FWHM at 30° and
+#: 0.12° at 120° 2θ, typical of a laboratory Bragg–Brentano instrument (common practice, no source).
+DEFAULT_CAGLIOTI = (0.01, -0.003, 0.005)
+#: Lines weaker than this fraction of a phase's strongest line are not drawn (speed).
+_LINE_CUTOFF = 1e-4
+#: A line is drawn over ±this many FWHM (the truncated Lorentzian tail holds < 1.1 % of its area).
+_WINDOW_FWHM = 30.0
+
+
+@dataclass(frozen=True)
+class PhaseStart:
+    """Starting values (and options) for one phase.
+
+    Attributes
+    ----------
+    zero_shift, displacement : float
+        Degrees 2θ (see :func:`refdb.geometry.peak_shift`).
+    d_scale : float
+        Multiplies every d-spacing; refined within ``1 ± d_scale_limit``.
+    width_scale : float
+        Multiplies the shared Caglioti FWHM.
+    texture_axis : tuple of 3 ints, optional
+        Refine a March–Dollase ratio about this reciprocal-lattice direction (needs hkl and
+        the cell of the entry).
+    """
+
+    zero_shift: float = 0.0
+    displacement: float = 0.0
+    d_scale: float = 1.0
+    width_scale: float = 1.0
+    texture_axis: tuple[int, int, int] | None = None
+
+
+@dataclass(frozen=True, eq=False)
+class PhaseFit:
+    """Refined parameters of one phase. Uncertainties are standard uncertainties (1σ),
+    scaled by √GoF when GoF > 1; NaN where a parameter was not refined or sits on a bound.
+
+    Attributes
+    ----------
+    index : int
+        Position in the list of phases given to :func:`refine_mixture`.
+    name, formula, entry_id, source_id : identification of the reference.
+    scale, u_scale : float
+        Scale factor S_p (counts per unit line strength).
+    zero_shift, u_zero_shift, displacement, u_displacement : float
+        Degrees 2θ (shared values are repeated on every phase).
+    d_scale, u_d_scale : float
+    width_scale, u_width_scale : float
+    texture_ratio, u_texture_ratio : float
+        March–Dollase r (1 and NaN when not refined).
+    profile : ndarray, shape (n,)
+        The phase's calculated contribution on the scan grid, counts.
+    """
+
+    index: int
+    name: str
+    formula: str
+    entry_id: int | None
+    source_id: str | None
+    scale: float
+    u_scale: float
+    zero_shift: float
+    u_zero_shift: float
+    displacement: float
+    u_displacement: float
+    d_scale: float
+    u_d_scale: float
+    width_scale: float
+    u_width_scale: float
+    texture_ratio: float
+    u_texture_ratio: float
+    profile: np.ndarray
+
+
+@dataclass(frozen=True, eq=False)
+class RefinementResult:
+    """Outcome of :func:`refine_mixture`.
+
+    Attributes
+    ----------
+    phases : tuple of PhaseFit
+    two_theta, observed, sigma : ndarray, shape (n,)
+        The fitted part of the scan (degrees, counts, counts).
+    calculated, background : ndarray, shape (n,)
+        Total calculated scan and its background part, counts.
+    scale_covariance : ndarray, shape (p, p)
+        Covariance of the scale factors (same scaling as the uncertainties).
+    rwp, rexp, gof, chi2 : float
+        Weighted-profile R, expected R, χ²/ν and χ².
+    n_points, n_parameters : int
+    caglioti : tuple of 3 floats
+        The shared U, V, W (deg²) the width factors multiply.
+    eta : float
+        Refined pseudo-Voigt Lorentzian fraction.
+    converged : bool
+    message : str
+        The optimiser's status text.
+    """
+
+    phases: tuple[PhaseFit, ...]
+    two_theta: np.ndarray
+    observed: np.ndarray
+    sigma: np.ndarray
+    calculated: np.ndarray
+    background: np.ndarray
+    scale_covariance: np.ndarray
+    rwp: float
+    rexp: float
+    gof: float
+    chi2: float
+    n_points: int
+    n_parameters: int
+    caglioti: tuple[float, float, float]
+    eta: float
+    converged: bool
+    message: str = ""
+    settings: dict = field(default_factory=dict)
+
+    @property
+    def phase_profiles(self) -> np.ndarray:
+        """Per-phase calculated profiles, shape (p, n), counts."""
+        if not self.phases:
+            return np.zeros((0, self.two_theta.size))
+        return np.vstack([p.profile for p in self.phases])
+
+    @property
+    def difference(self) -> np.ndarray:
+        """Observed minus calculated, counts, shape (n,)."""
+        return self.observed - self.calculated
+
+
+def snip_background(scan: Scan, *, window_deg: float = 2.0) -> np.ndarray:
+    """Estimate the background with SNIP clipping (Ryan, Clayton, Griffin, Sie & Cousens 1988,
+    Nucl. Instrum. Meth. B34, 396; Morháč et al. 1997, Nucl. Instrum. Meth. A401, 113) as
+    implemented by pybaselines, with the LLS transform.
+
+    Parameters
+    ----------
+    scan : Scan
+    window_deg : float
+        Largest clipping half-window in degrees 2θ: peaks (and peak clusters) narrower than
+        about twice this are removed; broader humps (amorphous scattering) stay.
+
+    Returns
+    -------
+    ndarray, shape (n,)
+        Background in counts, non-negative.
+    """
+    from pybaselines import Baseline
+
+    x = np.asarray(scan.two_theta, float)
+    step = float(np.median(np.diff(x))) if x.size > 1 else 1.0
+    half = int(max(3, min(round(window_deg / step), x.size // 3)))
+    fitter = Baseline(x_data=x, check_finite=False)
+    base, _ = fitter.snip(scan.counts, max_half_window=half, decreasing=True, smooth_half_window=1, filter_order=2)
+    return np.clip(base, 0.0, None)
+
+
+def caglioti_from_widths(two_theta: np.ndarray, fwhm: np.ndarray) -> tuple[float, float, float]:
+    """Fit Caglioti U, V, W (deg²) to measured peak widths; falls back to a constant width.
+
+    Uses least squares on FWHM² = U tan²θ + V tanθ + W (Caglioti, Paoletti & Ricci 1958,
+    Nucl. Instrum. 3, 223) with the peaks whose widths are finite and positive. Fewer than 6
+    such peaks, or a fit giving negative FWHM² in the range, give ``(0, 0, median²)``.
+    """
+    tt = np.asarray(two_theta, float)
+    fw = np.asarray(fwhm, float)
+    ok = np.isfinite(tt) & np.isfinite(fw) & (fw > 0)
+    if ok.sum() == 0:
+        return DEFAULT_CAGLIOTI
+    med = float(np.median(fw[ok]))
+    if ok.sum() >= 6:
+        t = np.tan(np.radians(tt[ok]) / 2.0)
+        a = np.column_stack([t * t, t, np.ones_like(t)])
+        (u, v, w), *_ = np.linalg.lstsq(a, fw[ok] ** 2, rcond=None)
+        grid = np.tan(np.radians(np.linspace(tt[ok].min(), tt[ok].max(), 50)) / 2.0)
+        if np.all(u * grid**2 + v * grid + w > (0.3 * med) ** 2):
+            return float(u), float(v), float(w)
+    return 0.0, 0.0, med * med
+
+
+class _Model:
+    """Profile model over a fixed scan grid; evaluates unit-scale phase profiles."""
+
+    def __init__(self, x, radiation, phases, starts, caglioti, per_phase_shift, texture):
+        self.x = x
+        self.radiation = radiation
+        self.phases: list[PhaseLines] = phases
+        self.caglioti = caglioti
+        self.lp_mono = radiation.monochromator_two_theta
+        self.per_phase_shift = per_phase_shift
+        self.texture = texture  # list of (hkl, cell, axis, sg) or None per phase
+        # parameter layout: [eta, zero, disp] shared or per phase, then per phase [d, logw, (r)]
+        names, x0, lo, hi = ["eta"], [0.5], [0.0], [1.0]
+        self.idx_eta = 0
+        self.idx_shift: list[tuple[int, int]] = []
+        if not per_phase_shift:
+            z0 = float(np.mean([s.zero_shift for s in starts])) if starts else 0.0
+            d0 = float(np.mean([s.displacement for s in starts])) if starts else 0.0
+            names += ["zero_shift", "displacement"]
+            x0 += [z0, d0]
+            lo += [-1.0, -1.0]
+            hi += [1.0, 1.0]
+        self.idx_d, self.idx_w, self.idx_r = [], [], []
+        for p, s in enumerate(starts):
+            if per_phase_shift:
+                names += [f"zero_shift[{p}]", f"displacement[{p}]"]
+                x0 += [s.zero_shift, s.displacement]
+                lo += [-1.0, -1.0]
+                hi += [1.0, 1.0]
+                self.idx_shift.append((len(names) - 2, len(names) - 1))
+            else:
+                self.idx_shift.append((1, 2))
+            self.idx_d.append(len(names))
+            names.append(f"d_scale[{p}]")
+            x0.append(s.d_scale)
+            lo.append(0.98)
+            hi.append(1.02)
+            self.idx_w.append(len(names))
+            names.append(f"log_width[{p}]")
+            x0.append(np.log(s.width_scale))
+            lo.append(np.log(0.25))
+            hi.append(np.log(8.0))
+            if texture[p] is not None:
+                self.idx_r.append(len(names))
+                names.append(f"texture_r[{p}]")
+                x0.append(1.0)
+                lo.append(0.3)
+                hi.append(3.0)
+            else:
+                self.idx_r.append(None)
+        self.names = names
+        self.lo = np.array(lo, float)
+        self.hi = np.array(hi, float)
+        self.x0 = np.clip(np.array(x0, float), self.lo + 1e-9, self.hi - 1e-9)
+        # every parameter except eta and the shifts touches one phase only
+        self.owner = np.full(len(names), -1)
+        for p in range(len(phases)):
+            for i in (self.idx_d[p], self.idx_w[p], self.idx_r[p]):
+                if i is not None:
+                    self.owner[i] = p
+            if per_phase_shift:
+                self.owner[list(self.idx_shift[p])] = p
+
+    def profile(self, p: int, theta: np.ndarray) -> np.ndarray:
+        """Unit-scale profile of phase p, shape (n,)."""
+        ph = self.phases[p]
+        lam = self.radiation.wavelengths
+        iz, idisp = self.idx_shift[p]
+        d = ph.d * theta[self.idx_d[p]]
+        tt = two_theta_from_d(d[:, None], lam[None, :])  # (lines, wavelengths)
+        strength = ph.strength[:, None] * self.radiation.weights[None, :]
+        ir = self.idx_r[p]
+        if ir is not None:
+            hkl, cell, axis, sg = self.texture[p]
+            strength = strength * march_dollase_factor(hkl, cell, axis, theta[ir], sg)[:, None]
+        with np.errstate(invalid="ignore"):
+            inten = strength * lorentz_polarisation(tt, monochromator_two_theta=self.lp_mono)
+        centre = tt + peak_shift(tt, zero_shift=theta[iz], displacement=theta[idisp])
+        fwhm = np.exp(theta[self.idx_w[p]]) * caglioti_fwhm(centre, *self.caglioti)
+        ok = np.isfinite(centre) & np.isfinite(inten) & (inten > 0)
+        if not ok.any():
+            return np.zeros_like(self.x)
+        top = inten[ok].max()
+        ok &= (inten > _LINE_CUTOFF * top) & (centre > self.x[0] - _WINDOW_FWHM * fwhm)
+        ok &= centre < self.x[-1] + _WINDOW_FWHM * fwhm
+        c, w, a = centre[ok], fwhm[ok], inten[ok]
+        if c.size == 0:
+            return np.zeros_like(self.x)
+        return _draw(self.x, c, w, a, theta[self.idx_eta])
+
+
+def _draw(x: np.ndarray, centre: np.ndarray, fwhm: np.ndarray, area: np.ndarray, eta: float) -> np.ndarray:
+    """Sum of area-weighted pseudo-Voigt peaks, each evaluated only within ±30 FWHM.
+
+    The peaks are sorted and drawn in blocks whose joint window spans few grid points, so
+    the work is about (points in windows) rather than (lines × points).
+    """
+    order = np.argsort(centre)
+    centre, fwhm, area = centre[order], fwhm[order], area[order]
+    out = np.zeros_like(x)
+    half = _WINDOW_FWHM * fwhm
+    lo_idx = np.searchsorted(x, centre - half)
+    hi_idx = np.searchsorted(x, centre + half)
+    block = 32
+    for s in range(0, centre.size, block):  # blocks of lines, not single reflections
+        e = min(s + block, centre.size)
+        i0, i1 = int(lo_idx[s:e].min()), int(hi_idx[s:e].max())
+        if i1 <= i0:
+            continue
+        xs = x[i0:i1]
+        prof = pseudo_voigt(xs[None, :], centre[s:e, None], fwhm[s:e, None], eta)
+        inside = (xs[None, :] >= (centre[s:e] - half[s:e])[:, None]) & (xs[None, :] <= (centre[s:e] + half[s:e])[:, None])
+        out[i0:i1] += (area[s:e, None] * prof * inside).sum(axis=0)
+    return out
+
+
+def _chebyshev_basis(x: np.ndarray, degree: int) -> np.ndarray:
+    t = 2.0 * (x - x[0]) / (x[-1] - x[0]) - 1.0 if x[-1] > x[0] else np.zeros_like(x)
+    return np.polynomial.chebyshev.chebvander(t, degree)  # (n, degree+1)
+
+
+def _solve_linear(cols: np.ndarray, basis: np.ndarray, target: np.ndarray, w: np.ndarray):
+    """Scales ≥ 0 for ``cols`` and free coefficients for ``basis`` minimising Σ w (target − model)².
+
+    Solved with NNLS (Lawson & Hanson 1974) on a matrix in which each free column appears
+    with both signs. Columns are normalised first for conditioning.
+    """
+    sw = np.sqrt(w)
+    a = np.hstack([cols, basis, -basis]) * sw[:, None]
+    norm = np.linalg.norm(a, axis=0)
+    norm[norm == 0] = 1.0
+    coef, _ = nnls(a / norm, target * sw, maxiter=50 * a.shape[1])
+    coef = coef / norm
+    p, k = cols.shape[1], basis.shape[1]
+    return coef[:p], coef[p : p + k] - coef[p + k :]
+
+
+def refine_mixture(
+    scan: Scan,
+    phases: Sequence[ReferenceData],
+    *,
+    starts: Sequence[PhaseStart] | None = None,
+    background: np.ndarray | None = None,
+    background_degree: int = 3,
+    caglioti: tuple[float, float, float] | None = None,
+    per_phase_shift: bool = False,
+    two_theta_range: tuple[float, float] | None = None,
+    max_evaluations: int = 60,
+    refine: bool = True,
+) -> RefinementResult:
+    """Refine scale, shift, d-scale, width (and optionally texture) of phases against a scan.
+
+    Parameters
+    ----------
+    scan : Scan
+        The measured scan (degrees 2θ, counts, σ).
+    phases : sequence of ReferenceData
+        Reference entries with lines (``ReferenceEntry`` gives ``entry_id``).
+    starts : sequence of PhaseStart, optional
+        Starting values per phase (e.g. from search candidates); default all neutral.
+    background : ndarray, shape (n,), optional
+        A background estimate in counts on the scan grid (e.g. from peak search); default a
+        SNIP estimate (:func:`snip_background`). A Chebyshev polynomial of
+        ``background_degree`` is always refined on top of it.
+    background_degree : int
+        Degree of that polynomial, 0–12. Default 3.
+    caglioti : (U, V, W), optional
+        Shared width function in deg²; default :data:`DEFAULT_CAGLIOTI`.
+    per_phase_shift : bool
+        Refine zero shift and displacement per phase instead of once for the specimen.
+    two_theta_range : (low, high), optional
+        Degrees 2θ; default the whole scan.
+    max_evaluations : int
+        Limit on outer iterations' function evaluations.
+    refine : bool
+        False keeps the starting nonlinear values and only solves the scales (fast).
+
+    Returns
+    -------
+    RefinementResult
+
+    Raises
+    ------
+    InputError
+        No phases, fewer points than parameters, or a background of the wrong length.
+    """
+    if not phases:
+        raise InputError("no phases to refine", "give at least one reference entry")
+    starts = list(starts) if starts is not None else [PhaseStart() for _ in phases]
+    if len(starts) != len(phases):
+        raise InputError("one starting value set is needed per phase")
+    if not 0 <= background_degree <= 12:
+        raise InputError(f"background degree {background_degree} is outside 0–12")
+    x_all = np.asarray(scan.two_theta, float)
+    sel = np.ones(x_all.size, bool)
+    if two_theta_range is not None:
+        sel = (x_all >= two_theta_range[0]) & (x_all <= two_theta_range[1])
+    if background is None:
+        bkg0 = snip_background(scan)
+    else:
+        bkg0 = np.asarray(background, float)
+        if bkg0.shape != x_all.shape:
+            raise InputError("the background does not have one value per scan point")
+    x, y = x_all[sel], np.asarray(scan.counts, float)[sel]
+    sig = np.clip(np.asarray(scan.sigma, float)[sel], 1e-6, None)
+    bkg0 = bkg0[sel]
+    w = 1.0 / sig**2
+    lines = [phase_lines(r, assumed_wavelength=scan.radiation.wavelength) for r in phases]
+    texture = [_texture_spec(r, s) for r, s in zip(phases, starts, strict=True)]
+    model = _Model(x, scan.radiation, lines, starts, caglioti or DEFAULT_CAGLIOTI, per_phase_shift, texture)
+    basis = _chebyshev_basis(x, background_degree)
+    target = y - bkg0
+    if x.size <= len(model.names) + len(phases) + basis.shape[1]:
+        raise InputError("the scan has too few points for this many phases", "use a wider 2θ range")
+
+    cache: dict = {}
+
+    def columns(theta: np.ndarray) -> np.ndarray:
+        key = theta.tobytes()
+        if key not in cache:
+            cache.clear()
+            cache[key] = np.column_stack([model.profile(p, theta) for p in range(len(lines))])
+        return cache[key]
+
+    def resid(theta: np.ndarray) -> np.ndarray:
+        cols = columns(theta)
+        s, c = _solve_linear(cols, basis, target, w)
+        return (target - cols @ s - basis @ c) / sig
+
+    def jac(theta: np.ndarray) -> np.ndarray:
+        # Kaufman's approximation: linear coefficients held fixed while θ moves.
+        cols = columns(theta)
+        s, _ = _solve_linear(cols, basis, target, w)
+        return _model_jacobian(model, theta, cols, s) / -sig[:, None]
+
+    theta = model.x0.copy()
+    message, converged = "scales only", True
+    if refine:
+        sol = least_squares(
+            resid, theta, jac=jac, bounds=(model.lo, model.hi), method="trf", x_scale="jac",
+            max_nfev=max_evaluations, xtol=1e-6, ftol=1e-7,
+        )
+        theta, message, converged = sol.x, sol.message, bool(sol.status > 0)
+    cols = columns(theta)
+    s, c = _solve_linear(cols, basis, target, w)
+    bkg = bkg0 + basis @ c
+    calc = bkg + cols @ s
+    r = (y - calc) / sig
+    chi2 = float(r @ r)
+    # Full Jacobian (nonlinear + scales + background) for the covariance.
+    jn = _model_jacobian(model, theta, cols, s) if refine else np.zeros((x.size, 0))
+    free_nl = np.arange(jn.shape[1])
+    if refine:
+        free_nl = free_nl[(theta > model.lo + 1e-7) & (theta < model.hi - 1e-7)]
+    active = np.flatnonzero(s > 0)
+    full = np.hstack([jn[:, free_nl], cols[:, active], basis]) / sig[:, None]
+    n_par = full.shape[1]
+    nu = max(x.size - n_par, 1)
+    gof = chi2 / nu
+    cov = _covariance(full) * max(gof, 1.0)
+    u_nl = np.full(len(model.names), np.nan)
+    u_nl[free_nl] = np.sqrt(np.clip(np.diag(cov)[: free_nl.size], 0, None))
+    k0 = free_nl.size
+    scale_cov = np.zeros((len(lines), len(lines)))
+    scale_cov[np.ix_(active, active)] = cov[k0 : k0 + active.size, k0 : k0 + active.size]
+    u_s = np.sqrt(np.clip(np.diag(scale_cov), 0, None))
+    sum_wy2 = float(np.sum(w * y * y))
+    fits = []
+    for p, ref in enumerate(phases):
+        iz, idisp = model.idx_shift[p]
+        ir = model.idx_r[p]
+        wscale = float(np.exp(theta[model.idx_w[p]]))
+        fits.append(
+            PhaseFit(
+                index=p,
+                name=ref.name,
+                formula=ref.formula,
+                entry_id=getattr(ref, "id", None),
+                source_id=ref.source_id,
+                scale=float(s[p]),
+                u_scale=float(u_s[p]) if s[p] > 0 else float("nan"),
+                zero_shift=float(theta[iz]),
+                u_zero_shift=float(u_nl[iz]),
+                displacement=float(theta[idisp]),
+                u_displacement=float(u_nl[idisp]),
+                d_scale=float(theta[model.idx_d[p]]),
+                u_d_scale=float(u_nl[model.idx_d[p]]),
+                width_scale=wscale,
+                u_width_scale=float(u_nl[model.idx_w[p]] * wscale),
+                texture_ratio=float(theta[ir]) if ir is not None else 1.0,
+                u_texture_ratio=float(u_nl[ir]) if ir is not None else float("nan"),
+                profile=cols[:, p] * s[p],
+            )
+        )
+    return RefinementResult(
+        phases=tuple(fits),
+        two_theta=x,
+        observed=y,
+        sigma=sig,
+        calculated=calc,
+        background=bkg,
+        scale_covariance=scale_cov,
+        rwp=float(np.sqrt(chi2 / sum_wy2)) if sum_wy2 > 0 else float("nan"),
+        rexp=float(np.sqrt(nu / sum_wy2)) if sum_wy2 > 0 else float("nan"),
+        gof=float(gof),
+        chi2=chi2,
+        n_points=int(x.size),
+        n_parameters=int(n_par),
+        caglioti=tuple(float(v) for v in model.caglioti),
+        eta=float(theta[model.idx_eta]),
+        converged=converged,
+        message=str(message),
+        settings={"background_degree": background_degree, "per_phase_shift": per_phase_shift},
+    )
+
+
+def _texture_spec(ref: ReferenceData, start: PhaseStart):
+    if start.texture_axis is None:
+        return None
+    if ref.lines.hkl is None or ref.cell is None:
+        raise InputError(
+            f"texture refinement of {ref.name!r} needs Miller indices and a cell",
+            "use a computed entry, or refine without a texture axis",
+        )
+    return (np.asarray(ref.lines.hkl), ref.cell, tuple(start.texture_axis), ref.space_group)
+
+
+def _model_jacobian(model: _Model, theta: np.ndarray, cols: np.ndarray, s: np.ndarray) -> np.ndarray:
+    """∂(Σ_p S_p Y_p)/∂θ by forward differences, re-drawing only the phases a parameter touches."""
+    jac = np.zeros((model.x.size, theta.size))
+    span = model.hi - model.lo
+    for i in range(theta.size):
+        h = 1e-4 * span[i] if model.names[i] != "eta" else 1e-3
+        t2 = theta.copy()
+        t2[i] = theta[i] + h if theta[i] + h <= model.hi[i] else theta[i] - h
+        step = t2[i] - theta[i]
+        owners = [int(model.owner[i])] if model.owner[i] >= 0 else range(len(model.phases))
+        for p in owners:
+            if s[p] > 0:
+                jac[:, i] += s[p] * (model.profile(p, t2) - cols[:, p]) / step
+    return jac
+
+
+def _covariance(j: np.ndarray) -> np.ndarray:
+    """(JᵀJ)⁻¹ via SVD, dropping singular directions (pseudo-inverse)."""
+    if j.shape[1] == 0:
+        return np.zeros((0, 0))
+    _, sv, vt = np.linalg.svd(j, full_matrices=False)
+    keep = sv > sv[0] * 1e-10
+    inv = np.zeros_like(sv)
+    inv[keep] = 1.0 / sv[keep] ** 2
+    return (vt.T * inv) @ vt
+
+
+def phase_profile(
+    ref: ReferenceData,
+    two_theta: np.ndarray,
+    radiation: Radiation,
+    *,
+    zero_shift: float = 0.0,
+    displacement: float = 0.0,
+    d_scale: float = 1.0,
+    width_scale: float = 1.0,
+    caglioti: tuple[float, float, float] = DEFAULT_CAGLIOTI,
+    eta: float = 0.5,
+) -> np.ndarray:
+    """Unit-scale profile of one phase on a 2θ grid, the same model :func:`refine_mixture` fits.
+
+    Parameters
+    ----------
+    ref : ReferenceData
+    two_theta : ndarray, shape (n,)
+        Increasing grid, degrees.
+    radiation : Radiation
+    zero_shift, displacement : float
+        Degrees 2θ.
+    d_scale, width_scale : float
+    caglioti : (U, V, W)
+        deg².
+    eta : float
+        Pseudo-Voigt Lorentzian fraction.
+
+    Returns
+    -------
+    ndarray, shape (n,)
+        Counts per unit scale factor.
+    """
+    start = PhaseStart(zero_shift=zero_shift, displacement=displacement, d_scale=d_scale, width_scale=width_scale)
+    lines = [phase_lines(ref, assumed_wavelength=radiation.wavelength)]
+    model = _Model(np.asarray(two_theta, float), radiation, lines, [start], caglioti, False, [None])
+    theta = model.x0.copy()
+    theta[model.idx_eta] = eta
+    theta[1], theta[2], theta[model.idx_d[0]] = zero_shift, displacement, d_scale
+    theta[model.idx_w[0]] = np.log(width_scale)
+    return model.profile(0, theta)
+
+
+def scale_only(scan: Scan, phases: Sequence[ReferenceData], **kwargs) -> RefinementResult:
+    """Shorthand for :func:`refine_mixture` with ``refine=False`` (scales and background only)."""
+    return refine_mixture(scan, phases, refine=False, **kwargs)
+
+
+__all__ = [
+    "DEFAULT_CAGLIOTI",
+    "PhaseFit",
+    "PhaseStart",
+    "RefinementResult",
+    "caglioti_from_widths",
+    "phase_profile",
+    "refine_mixture",
+    "scale_only",
+    "snip_background",
+]
