@@ -24,6 +24,9 @@ class RefdbError(Exception):
         self.message = message
         self.hint = hint
 
+    def __str__(self) -> str:
+        return self.one_line()
+
     def one_line(self) -> str:
         """The message and hint as one line, without line breaks."""
         text = self.message if not self.hint else f"{self.message} ({self.hint})"

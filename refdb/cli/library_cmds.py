@@ -215,14 +215,13 @@ def remove(
 
 def tag(
     entry_id: Annotated[int, typer.Argument(help="Entry id.")],
-    tags: Annotated[list[str], typer.Argument(help="Tags to add; prefix with - to remove, e.g. -old.")],
+    tags: Annotated[list[str] | None, typer.Argument(help="Tags to add.")] = None,
+    drop: Annotated[list[str] | None, typer.Option("--drop", help="A tag to take off (repeatable).")] = None,
     json_: JsonOpt = False,
 ) -> None:
-    """Add or remove tags of an entry (TAG adds, -TAG removes)."""
-    add = [t for t in tags if not t.startswith("-")]
-    rem = [t[1:] for t in tags if t.startswith("-")]
+    """Add tags to an entry (and take others off with --drop)."""
     with open_lib() as lib:
-        now = lib.set_tags(entry_id, add=add, remove=rem)
+        now = lib.set_tags(entry_id, add=tags or (), remove=drop or ())
     if json_:
         emit_json({"entry_id": entry_id, "tags": list(now)})
     else:

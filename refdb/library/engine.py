@@ -79,6 +79,9 @@ def resolve_location(spec: str | os.PathLike | None = None) -> Location:
     if backend == "postgresql" and url.drivername == "postgresql":
         url = url.set(drivername="postgresql+psycopg")
     path = None
+    if backend == "sqlite" and url.query.get("uri") == "true" and (url.database or "").startswith("file:"):
+        # SQLite URI filename, e.g. sqlite:///file:lib.sqlite?mode=ro&uri=true (read-only).
+        return Location(url, Path(url.database[5:]).expanduser().resolve())
     if backend == "sqlite" and url.database and url.database != ":memory:":
         path = Path(url.database).expanduser().resolve()
         url = url.set(database=str(path))

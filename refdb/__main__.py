@@ -1,0 +1,5 @@
+"""``python -m refdb`` runs the command line."""
+
+from refdb.cli.app import main
+
+main()
