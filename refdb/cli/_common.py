@@ -117,3 +117,28 @@ def finite_or_none(x: Any) -> Any:
     except (TypeError, ValueError):
         return x
     return f if math.isfinite(f) else None
+
+
+def radiation_from_options(
+    anode: str | None, wavelength: float | None, *, required: bool = False
+) -> "Radiation | None":
+    """Turn ``--anode`` / ``--wavelength`` into a :class:`~refdb.radiation.Radiation`.
+
+    Returns None when neither is given and ``required`` is False.
+
+    Raises
+    ------
+    InputError
+        Both are given, neither is given while ``required``, an unknown anode, or a wavelength
+        outside 0.1–5 Å.
+    """
+    from refdb.errors import InputError
+    from refdb.radiation import radiation_for
+
+    if anode is None and wavelength is None:
+        if required:
+            raise InputError("no radiation given", "pass --anode Cu or --wavelength 1.5406 (Å)")
+        return None
+    if anode is not None and wavelength is not None:
+        raise InputError("give --anode or --wavelength, not both")
+    return radiation_for(anode, wavelength=wavelength)
