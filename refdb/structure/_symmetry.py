@@ -1,0 +1,142 @@
+"""Space-group operations, site expansion and Laue classes, as numpy arrays.
+
+Operations act on fractional coordinates as x' = R·x + t. A reflection h (a row vector of
+Miller indices) is carried to h·R by the same operation, with |F(h·R)| = |F(h)|; adding the
+inversion (Friedel's law) gives the Laue class that merges powder reflections.
+
+References
+----------
+International Tables for Crystallography Vol. A (2016), ch. 1.4 (symmetry operations) and
+Vol. B (2010), §1.4.2 (symmetry in reciprocal space).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import gemmi
+import numpy as np
+
+from refdb.errors import InputError
+from refdb.structure import _cif
+
+#: Two images of one site closer than this (Å) are one atom on a special position. CIFs round
+#: coordinates to 3–5 decimals (up to ~0.02 Å in a 20 Å cell); genuinely split (disordered)
+#: positions of one site lie further apart, typically ≥ 0.3 Å (common practice, no source).
+SPECIAL_POSITION_TOLERANCE = 0.1
+
+
+@dataclass(frozen=True, eq=False)
+class SpaceGroupOps:
+    """The operations of a space group and its names.
+
+    Attributes
+    ----------
+    rotations : ndarray, shape (n, 3, 3), int
+        Rotation parts R of all n operations (centring included).
+    translations : ndarray, shape (n, 3)
+        Translation parts t in fractions of the cell edges.
+    name : str
+        Hermann–Mauguin symbol with setting, e.g. ``"R -3 c:H"``, as gemmi names it when the
+        operations are in its table; else the symbol given in the CIF.
+    number : int or None
+        International Tables number, None when the operations match no tabulated setting.
+    hall : str or None
+        Hall symbol, when known.
+    """
+
+    rotations: np.ndarray
+    translations: np.ndarray
+    name: str
+    number: int | None
+    hall: str | None
+
+
+def ops_from_block(block: gemmi.cif.Block, label: str) -> SpaceGroupOps:
+    """Symmetry operations of a CIF block: listed operations first, then Hall, then H-M.
+
+    Raises
+    ------
+    InputError
+        No symmetry at all, an unreadable operation, or an unknown space-group symbol.
+    """
+    triplets = _cif.values(block, "_space_group_symop_operation_xyz") or _cif.values(
+        block, "_symmetry_equiv_pos_as_xyz"
+    )
+    hall = _cif.value(block, "_space_group_name_Hall", "_symmetry_space_group_name_Hall")
+    hm = _cif.value(block, "_space_group_name_H-M_alt", "_symmetry_space_group_name_H-M")
+    if triplets:
+        try:
+            group = gemmi.GroupOps([gemmi.Op(t.replace(" ", "")) for t in triplets])
+        except (RuntimeError, ValueError) as exc:
+            raise InputError(f"{label}: unreadable symmetry operation ({' '.join(str(exc).split())})") from None
+    elif hall:
+        try:
+            group = gemmi.symops_from_hall(hall)
+        except (RuntimeError, ValueError):
+            raise InputError(f"{label}: unknown Hall symbol {hall!r}") from None
+    elif hm:
+        sg = gemmi.find_spacegroup_by_name(hm)
+        if sg is None:
+            raise InputError(f"{label}: unknown space group {hm!r}", "give the symmetry operations in the CIF")
+        group = sg.operations()
+    else:
+        raise InputError(f"{label} gives no space group or symmetry operations")
+    ops = list(group)
+    if not ops:
+        raise InputError(f"{label}: empty list of symmetry operations")
+    seitz = np.array([op.seitz() for op in ops], dtype=float)
+    rotations = np.rint(seitz[:, :3, :3]).astype(np.int64)
+    translations = np.mod(seitz[:, :3, 3], 1.0)
+    sg = gemmi.find_spacegroup_by_ops(group)
+    if sg is not None:
+        return SpaceGroupOps(rotations, translations, sg.xhm(), sg.number, sg.hall)
+    name = hm or (f"Hall {hall}" if hall else "unknown")
+    return SpaceGroupOps(rotations, translations, name, None, hall)
+
+
+def expand_sites(
+    frac: np.ndarray, ops: SpaceGroupOps, cell_matrix: np.ndarray, tolerance: float = SPECIAL_POSITION_TOLERANCE
+) -> tuple[np.ndarray, np.ndarray]:
+    """All atoms of the unit cell from the asymmetric unit.
+
+    Parameters
+    ----------
+    frac : ndarray, shape (n, 3)
+        Fractional coordinates of the asymmetric-unit sites.
+    ops : SpaceGroupOps
+    cell_matrix : ndarray, shape (3, 3)
+        Rows are the cell vectors a, b, c in Å (Cartesian), for distances.
+    tolerance : float
+        Images of one site closer than this (Å) are merged (special positions).
+
+    Returns
+    -------
+    positions : ndarray, shape (m, 3)
+        Fractional coordinates in [0, 1).
+    site_index : ndarray, shape (m,), int
+        Row of ``frac`` that each atom comes from.
+    """
+    n_ops = ops.rotations.shape[0]
+    images = np.einsum("oij,nj->noi", ops.rotations, frac) + ops.translations[None, :, :]
+    images = np.mod(images, 1.0)  # (n, o, 3)
+    earlier = np.triu(np.ones((n_ops, n_ops), dtype=bool), k=1)  # [i, j]: i < j
+    keep = np.empty(images.shape[:2], dtype=bool)
+    # Blocks of sites keep the (sites, o, o, 3) difference array near 16 MB for 192 operations.
+    step = max(1, 2_000_000 // (n_ops * n_ops * 3))
+    for start in range(0, images.shape[0], step):
+        block = images[start : start + step]
+        diff = block[:, :, None, :] - block[:, None, :, :]  # (b, o, o, 3)
+        diff -= np.rint(diff)
+        dist = np.linalg.norm(diff @ cell_matrix, axis=-1)  # (b, o, o)
+        keep[start : start + step] = ~np.any((dist < tolerance) & earlier[None, :, :], axis=1)
+    site_index = np.nonzero(keep)[0]
+    positions = images[keep]
+    positions = np.where(positions >= 1.0 - 1e-12, 0.0, positions)
+    return positions, site_index
+
+
+def laue_rotations(rotations: np.ndarray) -> np.ndarray:
+    """The distinct rotation parts and their negatives: the Laue class, shape (k, 3, 3), int."""
+    both = np.concatenate([rotations, -rotations]).reshape(-1, 9)
+    return np.unique(both, axis=0).reshape(-1, 3, 3)

@@ -1,0 +1,196 @@
+"""Reflections of a crystal: d-spacings, multiplicities and structure factors |F|².
+
+Every hkl inside the sphere 1/d ≤ 1/d_min is generated from the metric tensor, reduced to one
+representative per Laue-class orbit (symmetry-equivalent and Friedel-related reflections have
+the same d and |F|²), and given
+
+    F(h) = Σ_j occ_j · f_j(s) · exp(−B_j s²) · exp(2πi h·x_j),   s = sinθ/λ = 1/(2d),
+
+summed over every atom of the unit cell. Systematic absences are not looked up in tables:
+they come out of F as zeros and are dropped with everything negligibly weak.
+
+References
+----------
+International Tables for Crystallography Vol. B (2010), §1.2 (structure factor) and
+Vol. C (2006), §6.1.1 (scattering factors); Waasmaier & Kirfel (1995), Acta Cryst. A51, 416.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from refdb.errors import InputError
+from refdb.radiation import Radiation
+from refdb.records import PatternLines
+from refdb.structure import _symmetry, scattering
+from refdb.structure.crystal import Crystal
+
+#: Lines weaker than this fraction of the strongest |F|²·m are dropped: absences come out of F
+#: at ~1e-30 relative (rounding), real weak lines of heavy-atom structures at > 1e-5.
+RELATIVE_CUTOFF = 1e-6
+#: Smallest d_min accepted (Å): 0.2 Å is beyond Ag Kα's limit λ/2 = 0.28 Å.
+D_MIN_LIMIT = 0.2
+#: Work arrays (reflections × atoms) are processed in blocks of about this many elements.
+_BLOCK = 1_000_000
+
+
+def miller_sphere(crystal: Crystal, d_min: float) -> tuple[np.ndarray, np.ndarray]:
+    """All hkl ≠ 000 with d ≥ d_min.
+
+    The box |h| ≤ a/d_min, |k| ≤ b/d_min, |l| ≤ c/d_min holds the whole sphere because
+    h = a·r* and |r*| = 1/d.
+
+    Returns
+    -------
+    hkl : ndarray, shape (n, 3), int64
+    inv_d2 : ndarray, shape (n,)
+        1/d² in Å⁻² from the reciprocal metric tensor.
+    """
+    gstar = crystal.reciprocal_metric
+    limits = np.floor(np.array(crystal.cell[:3]) / d_min + 1e-9).astype(np.int64)
+    axes = [np.arange(-m, m + 1, dtype=np.int64) for m in limits]
+    hkl = np.stack(np.meshgrid(*axes, indexing="ij"), axis=-1).reshape(-1, 3)
+    inv_d2 = np.einsum("ni,ij,nj->n", hkl, gstar, hkl)
+    inside = (inv_d2 > 0) & (inv_d2 <= (1.0 + 1e-12) / (d_min * d_min))
+    return hkl[inside], inv_d2[inside]
+
+
+def unique_reflections(hkl: np.ndarray, laue: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """One representative per orbit of the Laue group, with the orbit's size.
+
+    The representative is the equivalent with the fewest negative indices, then the largest
+    (h, k, l) in lexicographic order (e.g. 110 rather than 2−10 in a hexagonal cell).
+
+    Parameters
+    ----------
+    hkl : ndarray, shape (n, 3), int
+        Every reflection of a sphere (orbits are complete).
+    laue : ndarray, shape (k, 3, 3), int
+        Rotation parts of the Laue group.
+
+    Returns
+    -------
+    rep : ndarray, shape (u, 3), int
+    multiplicity : ndarray, shape (u,), int
+    index : ndarray, shape (u,), int
+        Row of ``hkl`` of each representative.
+    """
+    span = np.abs(hkl).max(axis=0) if len(hkl) else np.zeros(3, dtype=np.int64)
+    base = 2 * span + 1
+    lex_size = int(np.prod(base))
+
+    def key(v: np.ndarray) -> np.ndarray:  # v (..., 3) → scalar keys, larger = preferred
+        lex = ((v[..., 0] + span[0]) * base[1] + (v[..., 1] + span[1])) * base[2] + (v[..., 2] + span[2])
+        return (3 - np.sum(v < 0, axis=-1)) * lex_size + lex
+
+    own = key(hkl)
+    canon = np.empty_like(own)
+    step = max(1, _BLOCK // (3 * laue.shape[0]))
+    for start in range(0, hkl.shape[0], step):
+        images = np.einsum("ni,kij->nkj", hkl[start : start + step], laue)  # h·R
+        canon[start : start + step] = key(images).max(axis=1)
+    index = np.nonzero(own == canon)[0]
+    order = np.argsort(own[index])
+    index = index[order]
+    _, counts = np.unique(canon, return_counts=True)
+    # Representatives and orbit keys, both sorted by key, correspond one to one.
+    return hkl[index], counts.astype(np.int64), index
+
+
+def structure_factors(
+    crystal: Crystal, hkl: np.ndarray, inv_d2: np.ndarray, *, anomalous: dict[str, tuple[float, float]] | None = None
+) -> np.ndarray:
+    """Powder-averaged |F|² (electrons²) of reflections.
+
+    Parameters
+    ----------
+    crystal : Crystal
+    hkl : ndarray, shape (n, 3)
+    inv_d2 : ndarray, shape (n,)
+        1/d² in Å⁻².
+    anomalous : dict, optional
+        (f′, f″) per element symbol. With anomalous terms |F(h)|² ≠ |F(−h)|²; a powder line
+        holds both, so the mean ½(|F(h)|² + |F(−h)|²) = |A|² + |B|² is returned, where A and
+        B are the structure factors of the real (f0 + f′) and imaginary (f″) parts.
+
+    Returns
+    -------
+    ndarray, shape (n,)
+    """
+    s2 = inv_d2 / 4.0
+    s = np.sqrt(s2)
+    species = tuple(scattering.species_name(e, int(c)) for e, c in zip(crystal.elements, crystal.charges, strict=True))
+    names, atom_species = np.unique(np.array(species), return_inverse=True)
+    f0 = scattering.f0_table(tuple(names), s)  # (n, n_species)
+    if anomalous:
+        fp = np.array([anomalous[e][0] for e in crystal.elements])
+        fpp = np.array([anomalous[e][1] for e in crystal.elements])
+    f2 = np.empty(hkl.shape[0])
+    step = max(1, _BLOCK // max(1, crystal.n_atoms))
+    for start in range(0, hkl.shape[0], step):
+        rows = slice(start, start + step)
+        phase = 2.0 * np.pi * (hkl[rows] @ crystal.frac.T)  # (b, atoms)
+        weight = crystal.occupancy * np.exp(-np.multiply.outer(s2[rows], crystal.b_iso))  # (b, atoms)
+        cos, sin = np.cos(phase), np.sin(phase)
+        real = f0[rows][:, atom_species] * weight
+        if anomalous:
+            real = real + weight * fp
+        a_re, a_im = np.sum(real * cos, axis=1), np.sum(real * sin, axis=1)
+        f2[rows] = a_re * a_re + a_im * a_im
+        if anomalous:
+            imag = weight * fpp
+            b_re, b_im = np.sum(imag * cos, axis=1), np.sum(imag * sin, axis=1)
+            f2[rows] += b_re * b_re + b_im * b_im
+    return f2
+
+
+def compute_reflections(
+    crystal: Crystal,
+    *,
+    d_min: float = 0.7,
+    anomalous_radiation: Radiation | None = None,
+    relative_cutoff: float = RELATIVE_CUTOFF,
+) -> PatternLines:
+    """The powder reflections of a crystal down to ``d_min``.
+
+    Parameters
+    ----------
+    crystal : Crystal
+    d_min : float
+        Shortest d-spacing in Å (default 0.7 Å: Cu Kα reaches 0.78 Å at 2θ = 160°).
+    anomalous_radiation : Radiation, optional
+        Include f′ and f″ of every element at the primary (Kα1) wavelength. The result then
+        belongs to that radiation; library entries are stored without anomalous terms.
+    relative_cutoff : float
+        Lines with m·|F|² below this fraction of the strongest are dropped
+        (systematic absences and negligible lines).
+
+    Returns
+    -------
+    PatternLines
+        ``d`` (Å, descending; ties ordered by hkl), ``hkl`` (n, 3) representatives,
+        ``multiplicity`` (number of hkl merged, Friedel mates included) and ``f2`` (|F|² in
+        electrons² per cell, powder-averaged).
+
+    Raises
+    ------
+    InputError
+        ``d_min`` not a positive number ≥ 0.2 Å.
+    """
+    if not np.isfinite(d_min) or d_min < D_MIN_LIMIT:
+        raise InputError(f"d_min = {d_min} Å is too small", f"use a value ≥ {D_MIN_LIMIT} Å (0.7 Å is usual)")
+    hkl, inv_d2 = miller_sphere(crystal, d_min)
+    laue = _symmetry.laue_rotations(crystal.rotations)
+    rep, mult, index = unique_reflections(hkl, laue)
+    inv_d2 = inv_d2[index]
+    anomalous = None
+    if anomalous_radiation is not None:
+        energy = scattering.energy_ev(anomalous_radiation.wavelength)
+        anomalous = {e: scattering.anomalous_terms(e, energy) for e in set(crystal.elements)}
+    f2 = structure_factors(crystal, rep, inv_d2, anomalous=anomalous)
+    strength = f2 * mult
+    keep = strength > relative_cutoff * strength.max() if len(strength) else np.zeros(0, dtype=bool)
+    d = 1.0 / np.sqrt(inv_d2[keep])
+    rep, mult, f2 = rep[keep], mult[keep], f2[keep]
+    order = np.lexsort((-rep[:, 2], -rep[:, 1], -rep[:, 0], -np.round(d, 9)))
+    return PatternLines(d=d[order], hkl=rep[order], multiplicity=mult[order], f2=f2[order])
