@@ -248,8 +248,9 @@ def test_provenance_names_every_file():
 
 
 # Strongest line of each mineral for Cu Kα1 (λ = 1.5406 Å), as 2θ in degrees: from memory of
-# the standard powder patterns (not from a stored source). Compared with refdb's computed
-# pattern when refdb.structure is available.
+# the standard powder patterns (not from a stored source). Each seed is run through two
+# calculators: pymatgen's XRDCalculator (independent CIF reader and structure factors, a test-only
+# dependency; it ignores displacement parameters) and refdb's own, when present.
 STRONGEST_FROM_MEMORY = {
     "quartz": 26.64,  # 101
     "hematite": 33.15,  # 104
@@ -280,33 +281,102 @@ STRONGEST_FROM_MEMORY = {
     "gypsum": 11.6,  # 020
     "brucite": 38.0,  # 101
     "mackinawite": 17.6,  # 001
-    "akaganeite": 26.7,  # 310 (110 at 11.8° is of similar height)
+    "akaganeite": 26.7,  # 310
 }
+# How far down the computed list the remembered strongest line may sit. Gypsum: 020 and 12-1
+# are of similar height, and measured patterns favour 020 through {010} cleavage texture.
+# Akaganeite: 110, 200 and 310 of our tetragonal average model are of similar height, and
+# their ratio depends on the tunnel chloride, which the model only averages.
+RANK_ALLOWED = {"gypsum": 2, "akaganeite": 3}
+# Corundum's 113 and 116 are within a few per cent of each other; without displacement
+# parameters (pymatgen) 116 comes out ahead, so pymatgen is allowed the top two there.
+RANK_ALLOWED_NO_ADP = {"corundum": 2}
 
 
-def _strongest_two_theta(path: Path, wavelength: float) -> list[float]:
+def _refdb_lines(path: Path, wavelength: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     structure = pytest.importorskip("refdb.structure", reason="refdb.structure not available yet")
     if not hasattr(structure, "reference_from_cif") or not hasattr(structure, "stick_pattern"):
         pytest.skip("refdb.structure does not export reference_from_cif/stick_pattern yet")
     from refdb.radiation import radiation_for
 
-    ref = structure.reference_from_cif(path)
-    rad = radiation_for(wavelength=wavelength)
-    sticks = structure.stick_pattern(ref.lines, rad)
-    tt = np.asarray(sticks.two_theta)
-    inten = np.asarray(sticks.intensity)
-    keep = (tt > 5.0) & (tt < 90.0)
-    order = np.argsort(inten[keep])[::-1]
-    return list(tt[keep][order][:2])
+    sticks = structure.stick_pattern(structure.reference_from_cif(path), radiation_for(wavelength=wavelength))
+    return np.asarray(sticks.two_theta), np.asarray(sticks.intensity), np.asarray(sticks.hkl)
 
 
+def _pymatgen_lines(path: Path, wavelength: float) -> tuple[np.ndarray, np.ndarray]:
+    pytest.importorskip("pymatgen", reason="pymatgen (test-only reference calculator) not installed")
+    import warnings
+
+    from pymatgen.analysis.diffraction.xrd import XRDCalculator
+    from pymatgen.core import Structure
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # pymatgen warns about our own _refdb_* CIF items
+        structure = Structure.from_file(str(path))
+    pattern = XRDCalculator(wavelength=wavelength).get_pattern(structure, two_theta_range=(5, 90))
+    return np.asarray(pattern.x), np.asarray(pattern.y)
+
+
+def _merge(tt: np.ndarray, inten: np.ndarray, tol: float = 0.02) -> tuple[np.ndarray, np.ndarray]:
+    """Sum sticks closer than ``tol`` degrees (e.g. quartz 101 and 011), strongest first."""
+    order = np.argsort(tt)
+    tt, inten = tt[order], inten[order]
+    groups = np.concatenate([[0], np.cumsum(np.diff(tt) > tol)])
+    pos = np.array([tt[groups == g][np.argmax(inten[groups == g])] for g in range(groups[-1] + 1)])
+    tot = np.array([inten[groups == g].sum() for g in range(groups[-1] + 1)])
+    rank = np.argsort(tot)[::-1]
+    return pos[rank], tot[rank]
+
+
+@pytest.mark.parametrize("calculator", ["pymatgen", "refdb"])
 @pytest.mark.parametrize("stem", sorted(STRONGEST_FROM_MEMORY))
-def test_strongest_line_matches_known_pattern(stem):
+def test_strongest_line_matches_known_pattern(stem, calculator):
     path = SEEDS / "structures" / f"{stem}.cif"
-    top = _strongest_two_theta(path, 1.5406)
+    if calculator == "refdb":
+        tt, inten, _ = _refdb_lines(path, 1.5406)
+        allowed = RANK_ALLOWED.get(stem, 1)
+    else:
+        tt, inten = _pymatgen_lines(path, 1.5406)
+        allowed = max(RANK_ALLOWED.get(stem, 1), RANK_ALLOWED_NO_ADP.get(stem, 1))
+    pos, _ = _merge(tt, inten)
     expected = STRONGEST_FROM_MEMORY[stem]
-    # 0.3°: the remembered 2θ values are rounded to 0.05–0.1°, and the cells of the patterns
-    # remembered differ from the seed's by up to ~0.5 % (≈ 0.15° at 35°). Akaganeite's 310 and
-    # 110 lines are of similar height, so the expected line may be the second strongest there.
-    candidates = top if stem == "akaganeite" else top[:1]
-    assert any(abs(t - expected) < 0.3 for t in candidates), (stem, top, expected)
+    # 0.3°: the remembered 2θ values are rounded to 0.05–0.1°, and the cells behind the
+    # remembered patterns differ from the seeds' by up to ~0.5 % (≈ 0.15° at 35° 2θ).
+    assert any(abs(t - expected) < 0.3 for t in pos[:allowed]), (stem, pos[:3], expected)
+
+
+def _relative(stem: str, hkls: list[tuple[int, int, int]]) -> list[float]:
+    """refdb's Cu Kα1 intensities of the given lines, relative to the first one = 100."""
+    tt, inten, hkl = _refdb_lines(SEEDS / "structures" / f"{stem}.cif", 1.5406)
+    out = []
+    for want in hkls:
+        rows = [i for i, h in enumerate(hkl) if tuple(int(v) for v in h) == want]
+        assert rows, (stem, want)
+        out.append(float(inten[rows].sum()))
+    return [100.0 * v / out[0] for v in out]
+
+
+# Certified relative intensities of NIST SRM 674 (ITC Vol. C, Table 5.2.11.1, "taken from the
+# NIST certificate"; listed in check-values.md), strongest line = 100.
+@pytest.mark.parametrize(
+    "stem, lines, certified",
+    [
+        ("corundum", [(1, 1, 3), (1, 1, 6), (1, 0, 4)], [100.0, 92.5, 87.4]),
+        ("zincite", [(1, 0, 1), (1, 0, 0), (0, 0, 2)], [100.0, 57.6, 40.2]),
+        ("rutile", [(1, 1, 0), (2, 1, 1), (1, 0, 1)], [100.0, 56.9, 44.0]),
+    ],
+)
+def test_relative_intensities_match_srm_674(stem, lines, certified):
+    computed = _relative(stem, lines)
+    # ±8 on the 0–100 scale: about three times the certified uncertainties (1.1–2.8), plus the
+    # displacement parameters assumed in some seeds and the certificate's instrument (its
+    # monochromator changes LP ratios by a few per cent between 30° and 60° 2θ).
+    for got, want in zip(computed[1:], certified[1:]):
+        assert got == pytest.approx(want, abs=8.0), (stem, computed, certified)
+
+
+def test_corundum_intensity_order_of_srm_676a():
+    # SRM 676a certifies the order I(113) > I(116) > I(104) (Powder Diffr. article on SRM 676a,
+    # citing Kaiser & Watters 2008; check-values.md).
+    i113, i116, i104 = _relative("corundum", [(1, 1, 3), (1, 1, 6), (1, 0, 4)])
+    assert i113 > i116 > i104
