@@ -5,7 +5,7 @@ Two published routes, picked per mixture by name (:data:`METHODS`):
 * ``"cell"`` — Hill & Howard (1987), J. Appl. Cryst. 20, 467: for phases whose pattern is
   computed from a structure, ``w_p = S_p (ZMV)_p / Σ_k S_k (ZMV)_k``. Here Z·M is the mass of
   the unit cell (``cell_mass``, g/mol) and V its volume (Å³), because the profile's line
-  strengths are m·|F|² per unit cell (see :mod:`refdb.match._phase_lines`).
+  strengths are m·|F|² per unit cell (see :mod:`refdb.structure.pattern`).
 * ``"rir"`` — Chung (1974), J. Appl. Cryst. 7, 519 and 7, 526 (reference intensity ratios,
   "matrix flushing"): ``X_i = (I_i / k_i) / Σ_j (I_j / k_j)`` with ``k = I/Ic`` and I_i the
   integrated intensity of the strongest line of phase i in this scan (scale × strongest
@@ -31,10 +31,9 @@ from dataclasses import dataclass
 import numpy as np
 
 from refdb.errors import InputError
-from refdb.geometry import lorentz_polarisation
-from refdb.match._phase_lines import phase_lines
-from refdb.radiation import Radiation, two_theta_from_d
+from refdb.radiation import Radiation
 from refdb.records import ReferenceData
+from refdb.structure.pattern import stick_pattern
 
 METHODS: tuple[str, ...] = ("auto", "cell", "rir")
 
@@ -75,15 +74,14 @@ class Quantification:
 
 
 def strongest_line_intensity(ref: ReferenceData, radiation: Radiation) -> float:
-    """Integrated intensity per unit scale of the phase's strongest Kα1 line in this radiation.
+    """Integrated intensity per unit scale of the phase's strongest primary-line (Kα1) stick.
 
-    ``max(strength · LP(2θ))`` over lines that diffract at the primary wavelength.
+    From :func:`refdb.structure.pattern.stick_pattern` (``Sticks.absolute``) over 0.5–179.5°;
+    a measured entry without a wavelength is taken as measured with ``radiation``'s.
     """
-    pl = phase_lines(ref, assumed_wavelength=radiation.wavelength)
-    tt = two_theta_from_d(pl.d, radiation.wavelength)
-    with np.errstate(invalid="ignore"):
-        inten = pl.strength * lorentz_polarisation(tt, monochromator_two_theta=radiation.monochromator_two_theta)
-    inten = inten[np.isfinite(inten)]
+    st = stick_pattern(ref, radiation, two_theta_range=(0.5, 179.5), measured_wavelength=ref.wavelength or radiation.wavelength)
+    primary = np.array([n == radiation.line_names[0] for n in st.line_name], dtype=bool)
+    inten = st.absolute[primary & np.isfinite(st.absolute)]
     return float(inten.max()) if inten.size else float("nan")
 
 

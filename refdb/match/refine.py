@@ -35,20 +35,19 @@ import numpy as np
 from scipy.optimize import least_squares, nnls
 
 from refdb.errors import InputError
-from refdb.geometry import lorentz_polarisation, peak_shift
-from refdb.match._phase_lines import PhaseLines, march_dollase_factor, phase_lines
-from refdb.profiles import caglioti_fwhm, pseudo_voigt
+from refdb.geometry import peak_shift
+from refdb.match._phase_lines import PhaseSticks, phase_sticks
+from refdb.profiles import caglioti_fwhm
 from refdb.radiation import Radiation, two_theta_from_d
 from refdb.records import ReferenceData
 from refdb.scan.types import Scan
+from refdb.structure.pattern import sum_profiles
 
 #: Caglioti U, V, W (deg²) used when nothing better is known: about 0.08° FWHM at 30° and
 #: 0.12° at 120° 2θ, typical of a laboratory Bragg–Brentano instrument (common practice, no source).
 DEFAULT_CAGLIOTI = (0.01, -0.003, 0.005)
-#: Lines weaker than this fraction of a phase's strongest line are not drawn (speed).
-_LINE_CUTOFF = 1e-4
-#: A line is drawn over ±this many FWHM (the truncated Lorentzian tail holds < 1.1 % of its area).
-_WINDOW_FWHM = 30.0
+#: Sticks weaker than this fraction of a phase's strongest stick are not drawn (speed).
+_STICK_CUTOFF = 1e-4
 
 
 @dataclass(frozen=True)
@@ -227,14 +226,12 @@ def caglioti_from_widths(two_theta: np.ndarray, fwhm: np.ndarray) -> tuple[float
 class _Model:
     """Profile model over a fixed scan grid; evaluates unit-scale phase profiles."""
 
-    def __init__(self, x, radiation, phases, starts, caglioti, per_phase_shift, texture):
+    def __init__(self, x, radiation, phases, starts, caglioti, per_phase_shift):
         self.x = x
-        self.radiation = radiation
-        self.phases: list[PhaseLines] = phases
+        self.phases: list[PhaseSticks] = phases
         self.caglioti = caglioti
-        self.lp_mono = radiation.monochromator_two_theta
         self.per_phase_shift = per_phase_shift
-        self.texture = texture  # list of (hkl, cell, axis, sg) or None per phase
+        self.texture = [s.texture_axis for s in starts]
         # parameter layout: [eta, zero, disp] shared or per phase, then per phase [d, logw, (r)]
         names, x0, lo, hi = ["eta"], [0.5], [0.0], [1.0]
         self.idx_eta = 0
@@ -266,7 +263,7 @@ class _Model:
             x0.append(np.log(s.width_scale))
             lo.append(np.log(0.25))
             hi.append(np.log(8.0))
-            if texture[p] is not None:
+            if s.texture_axis is not None:
                 self.idx_r.append(len(names))
                 names.append(f"texture_r[{p}]")
                 x0.append(1.0)
@@ -290,54 +287,30 @@ class _Model:
     def profile(self, p: int, theta: np.ndarray) -> np.ndarray:
         """Unit-scale profile of phase p, shape (n,)."""
         ph = self.phases[p]
-        lam = self.radiation.wavelengths
         iz, idisp = self.idx_shift[p]
-        d = ph.d * theta[self.idx_d[p]]
-        tt = two_theta_from_d(d[:, None], lam[None, :])  # (lines, wavelengths)
-        strength = ph.strength[:, None] * self.radiation.weights[None, :]
+        tt, strength = ph.moved(float(theta[self.idx_d[p]]))
         ir = self.idx_r[p]
         if ir is not None:
-            hkl, cell, axis, sg = self.texture[p]
-            strength = strength * march_dollase_factor(hkl, cell, axis, theta[ir], sg)[:, None]
-        with np.errstate(invalid="ignore"):
-            inten = strength * lorentz_polarisation(tt, monochromator_two_theta=self.lp_mono)
+            strength = strength * ph.texture(self.texture[p], theta[ir])
         centre = tt + peak_shift(tt, zero_shift=theta[iz], displacement=theta[idisp])
         fwhm = np.exp(theta[self.idx_w[p]]) * caglioti_fwhm(centre, *self.caglioti)
-        ok = np.isfinite(centre) & np.isfinite(inten) & (inten > 0)
-        if not ok.any():
-            return np.zeros_like(self.x)
-        top = inten[ok].max()
-        ok &= (inten > _LINE_CUTOFF * top) & (centre > self.x[0] - _WINDOW_FWHM * fwhm)
-        ok &= centre < self.x[-1] + _WINDOW_FWHM * fwhm
-        c, w, a = centre[ok], fwhm[ok], inten[ok]
-        if c.size == 0:
-            return np.zeros_like(self.x)
-        return _draw(self.x, c, w, a, theta[self.idx_eta])
+        ok = np.isfinite(centre) & (strength > 0)
+        return sum_profiles(self.x, centre[ok], strength[ok], fwhm[ok], float(theta[self.idx_eta]))
 
 
-def _draw(x: np.ndarray, centre: np.ndarray, fwhm: np.ndarray, area: np.ndarray, eta: float) -> np.ndarray:
-    """Sum of area-weighted pseudo-Voigt peaks, each evaluated only within ±30 FWHM.
-
-    The peaks are sorted and drawn in blocks whose joint window spans few grid points, so
-    the work is about (points in windows) rather than (lines × points).
-    """
-    order = np.argsort(centre)
-    centre, fwhm, area = centre[order], fwhm[order], area[order]
-    out = np.zeros_like(x)
-    half = _WINDOW_FWHM * fwhm
-    lo_idx = np.searchsorted(x, centre - half)
-    hi_idx = np.searchsorted(x, centre + half)
-    block = 32
-    for s in range(0, centre.size, block):  # blocks of lines, not single reflections
-        e = min(s + block, centre.size)
-        i0, i1 = int(lo_idx[s:e].min()), int(hi_idx[s:e].max())
-        if i1 <= i0:
-            continue
-        xs = x[i0:i1]
-        prof = pseudo_voigt(xs[None, :], centre[s:e, None], fwhm[s:e, None], eta)
-        inside = (xs[None, :] >= (centre[s:e] - half[s:e])[:, None]) & (xs[None, :] <= (centre[s:e] + half[s:e])[:, None])
-        out[i0:i1] += (area[s:e, None] * prof * inside).sum(axis=0)
-    return out
+def _prepared(ref: ReferenceData, radiation: Radiation, x: np.ndarray) -> PhaseSticks:
+    """Sticks of ``ref`` over the grid, without the negligibly weak ones."""
+    ph = phase_sticks(ref, radiation, (float(x[0]), float(x[-1])))
+    keep = ph.strength > _STICK_CUTOFF * (ph.strength.max() if ph.strength.size else 0.0)
+    return PhaseSticks(
+        reference=ph.reference,
+        d=ph.d[keep],
+        wavelength=ph.wavelength[keep],
+        two_theta=ph.two_theta[keep],
+        strength=ph.strength[keep],
+        hkl=None if ph.hkl is None else ph.hkl[keep],
+        monochromator_two_theta=ph.monochromator_two_theta,
+    )
 
 
 def _chebyshev_basis(x: np.ndarray, degree: int) -> np.ndarray:
@@ -373,6 +346,7 @@ def refine_mixture(
     two_theta_range: tuple[float, float] | None = None,
     max_evaluations: int = 60,
     refine: bool = True,
+    eta: float = 0.5,
 ) -> RefinementResult:
     """Refine scale, shift, d-scale, width (and optionally texture) of phases against a scan.
 
@@ -400,6 +374,8 @@ def refine_mixture(
         Limit on outer iterations' function evaluations.
     refine : bool
         False keeps the starting nonlinear values and only solves the scales (fast).
+    eta : float
+        Starting (or, with ``refine=False``, fixed) pseudo-Voigt Lorentzian fraction, 0–1.
 
     Returns
     -------
@@ -431,9 +407,10 @@ def refine_mixture(
     sig = np.clip(np.asarray(scan.sigma, float)[sel], 1e-6, None)
     bkg0 = bkg0[sel]
     w = 1.0 / sig**2
-    lines = [phase_lines(r, assumed_wavelength=scan.radiation.wavelength) for r in phases]
-    texture = [_texture_spec(r, s) for r, s in zip(phases, starts, strict=True)]
-    model = _Model(x, scan.radiation, lines, starts, caglioti or DEFAULT_CAGLIOTI, per_phase_shift, texture)
+    for r, st in zip(phases, starts, strict=True):
+        _check_texture(r, st)
+    lines = [_prepared(r, scan.radiation, x) for r in phases]
+    model = _Model(x, scan.radiation, lines, starts, caglioti or DEFAULT_CAGLIOTI, per_phase_shift)
     basis = _chebyshev_basis(x, background_degree)
     target = y - bkg0
     if x.size <= len(model.names) + len(phases) + basis.shape[1]:
@@ -459,11 +436,14 @@ def refine_mixture(
         s, _ = _solve_linear(cols, basis, target, w)
         return _model_jacobian(model, theta, cols, s) / -sig[:, None]
 
+    if not 0.0 <= eta <= 1.0:
+        raise InputError(f"eta = {eta} must lie between 0 (Gaussian) and 1 (Lorentzian)")
     theta = model.x0.copy()
+    theta[model.idx_eta] = min(max(eta, 1e-6), 1 - 1e-6)
     message, converged = "scales only", True
     if refine:
         sol = least_squares(
-            resid, theta, jac=jac, bounds=(model.lo, model.hi), method="trf", x_scale="jac",
+            resid, theta, jac=jac, bounds=(model.lo, model.hi), method="trf", x_scale="jac", tr_solver="lsmr",
             max_nfev=max_evaluations, xtol=1e-6, ftol=1e-7,
         )
         theta, message, converged = sol.x, sol.message, bool(sol.status > 0)
@@ -540,15 +520,12 @@ def refine_mixture(
     )
 
 
-def _texture_spec(ref: ReferenceData, start: PhaseStart):
-    if start.texture_axis is None:
-        return None
-    if ref.lines.hkl is None or ref.cell is None:
+def _check_texture(ref: ReferenceData, start: PhaseStart) -> None:
+    if start.texture_axis is not None and (ref.lines.hkl is None or ref.cell is None):
         raise InputError(
             f"texture refinement of {ref.name!r} needs Miller indices and a cell",
             "use a computed entry, or refine without a texture axis",
         )
-    return (np.asarray(ref.lines.hkl), ref.cell, tuple(start.texture_axis), ref.space_group)
 
 
 def _model_jacobian(model: _Model, theta: np.ndarray, cols: np.ndarray, s: np.ndarray) -> np.ndarray:
@@ -568,14 +545,15 @@ def _model_jacobian(model: _Model, theta: np.ndarray, cols: np.ndarray, s: np.nd
 
 
 def _covariance(j: np.ndarray) -> np.ndarray:
-    """(JᵀJ)⁻¹ via SVD, dropping singular directions (pseudo-inverse)."""
+    """(JᵀJ)⁻¹ as a pseudo-inverse (eigen-decomposition), dropping singular directions."""
     if j.shape[1] == 0:
         return np.zeros((0, 0))
-    _, sv, vt = np.linalg.svd(j, full_matrices=False)
-    keep = sv > sv[0] * 1e-10
-    inv = np.zeros_like(sv)
-    inv[keep] = 1.0 / sv[keep] ** 2
-    return (vt.T * inv) @ vt
+    jtj = j.T @ j
+    d = np.sqrt(np.clip(np.diag(jtj), 1e-300, None))
+    vals, vecs = np.linalg.eigh(jtj / np.outer(d, d))  # scaled for conditioning
+    keep = vals > vals.max() * 1e-12
+    inv = (vecs[:, keep] / vals[keep]) @ vecs[:, keep].T
+    return inv / np.outer(d, d)
 
 
 def phase_profile(
@@ -612,8 +590,8 @@ def phase_profile(
         Counts per unit scale factor.
     """
     start = PhaseStart(zero_shift=zero_shift, displacement=displacement, d_scale=d_scale, width_scale=width_scale)
-    lines = [phase_lines(ref, assumed_wavelength=radiation.wavelength)]
-    model = _Model(np.asarray(two_theta, float), radiation, lines, [start], caglioti, False, [None])
+    grid = np.asarray(two_theta, float)
+    model = _Model(grid, radiation, [_prepared(ref, radiation, grid)], [start], caglioti, False)
     theta = model.x0.copy()
     theta[model.idx_eta] = eta
     theta[1], theta[2], theta[model.idx_d[0]] = zero_shift, displacement, d_scale

@@ -79,6 +79,7 @@ def reference(key: str, entry_id: int | None = None) -> ReferenceData:
         cell_mass=float(struct.composition.weight),
         source="COD",
         source_id=cod,
+        structure_text=path.read_text(encoding="utf-8", errors="replace"),
     )
 
 
@@ -129,3 +130,23 @@ def simulate(
     counts = rng.poisson(mean).astype(float)
     scan = Scan(x, counts, np.sqrt(np.maximum(counts, 1.0)), rad, source="synthetic")
     return scan, scales
+
+
+def march_dollase(hkl, cell, axis, r, space_group) -> np.ndarray:
+    """March–Dollase factor averaged over equivalents (Dollase 1986, J. Appl. Cryst. 19, 267),
+    written here independently of refdb: P(α) = (r² cos²α + sin²α/r)^(−3/2)."""
+    import gemmi
+
+    a, b, c, al, be, ga = cell
+    ca, cb, cg = np.cos(np.radians([al, be, ga]))
+    g = np.array([[a * a, a * b * cg, a * c * cb], [a * b * cg, b * b, b * c * ca], [a * c * cb, b * c * ca, c * c]])
+    gs = np.linalg.inv(g)
+    ops = gemmi.find_spacegroup_by_name(space_group).operations()
+    rots = np.array([op.rot for op in ops.sym_ops], float) / 24.0
+    out = np.zeros(len(hkl))
+    ax = np.asarray(axis, float)
+    for rot in rots:  # test helper: clarity over speed
+        h = np.asarray(hkl, float) @ rot
+        cos2 = (h @ gs @ ax) ** 2 / (np.einsum("ij,jk,ik->i", h, gs, h) * (ax @ gs @ ax))
+        out += (r * r * cos2 + (1 - cos2) / r) ** -1.5
+    return out / len(rots)

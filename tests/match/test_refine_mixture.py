@@ -11,12 +11,11 @@ import pytest
 
 from refdb.errors import InputError
 from refdb.geometry import peak_shift
-from refdb.match._phase_lines import march_dollase_factor
 from refdb.match.quant import quantify
 from refdb.match.refine import PhaseStart, caglioti_from_widths, refine_mixture
 from refdb.records import PatternLines
 
-from ._mixture_data import reference, simulate
+from ._mixture_data import march_dollase, reference, simulate
 
 FOUR = ("quartz", "corundum", "calcite", "rutile")
 
@@ -111,28 +110,10 @@ def test_bad_input():
         refine_mixture(scan, refs, starts=[PhaseStart(), PhaseStart()])
 
 
-def test_march_dollase_limits():
-    """Dollase (1986), J. Appl. Cryst. 19, 267: P(α) = (r² cos²α + sin²α/r)^(−3/2).
-
-    Along the axis (α = 0) P = r⁻³; perpendicular (α = 90°) P = r^(3/2). In 4/mmm the
-    equivalents of 100 are all perpendicular to 001, so their mean keeps r^(3/2).
-    """
-    cell = (4.0, 4.0, 6.0, 90.0, 90.0, 90.0)
-    hkl = np.array([[0, 0, 1], [1, 0, 0]])
-    p = march_dollase_factor(hkl, cell, (0, 0, 1), 0.8, "P 4/m m m")
-    np.testing.assert_allclose(p, [0.8**-3, 0.8**1.5], rtol=1e-12)
-    np.testing.assert_allclose(march_dollase_factor(hkl, cell, (0, 0, 1), 1.0, "P 4/m m m"), 1.0)
-    # 110 in a cubic crystal about 001: equivalents at α = 45° (8 of 12) and 90° (4 of 12).
-    cubic = (4.0, 4.0, 4.0, 90.0, 90.0, 90.0)
-    r = 0.7
-    expect = (8 * (r * r * 0.5 + 0.5 / r) ** -1.5 + 4 * r**1.5) / 12
-    np.testing.assert_allclose(march_dollase_factor(np.array([[1, 1, 0]]), cubic, (0, 0, 1), r, "F m -3 m"), expect)
-
-
 def test_texture_refined_on_textured_scan():
     ref = reference("calcite")
     r_true = 0.8
-    factor = march_dollase_factor(ref.lines.hkl, ref.cell, (1, 0, 4), r_true, ref.space_group)
+    factor = march_dollase(ref.lines.hkl, ref.cell, (1, 0, 4), r_true, ref.space_group)
     textured = _with_f2(ref, ref.lines.f2 * factor)
     scan, _ = simulate([textured], [1.0], seed=5)
     fit = refine_mixture(scan, [ref], caglioti=(0.0, 0.0, 0.08**2), starts=[PhaseStart(texture_axis=(1, 0, 4))])

@@ -1,0 +1,123 @@
+"""Mixture decomposition end to end: a library built from real COD structures with refdb's own
+structure code, scans drawn from lines computed independently by pymatgen (``_mixture_data``).
+
+The two calculators differ slightly (refdb applies the CIF's displacement parameters), which
+is what a real scan does too: the tolerances below allow for it.
+"""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pytest
+
+from refdb.match.mixture import decompose
+
+from ._mixture_data import PHASES, STRUCTURES, need_structures, reference, simulate
+
+#: In the library: every phase of PHASES except hematite, which plays the unknown.
+ABSENT = "hematite"
+
+
+@pytest.fixture(scope="module")
+def library(tmp_path_factory):
+    need_structures()
+    from refdb.library import open_library
+    from refdb.structure.reference import reference_from_cif
+
+    lib = open_library(tmp_path_factory.mktemp("lib") / "lib.sqlite", create=True)
+    ids = {}
+    for key, (cod, _, _) in PHASES.items():
+        if key != ABSENT:
+            ids[key] = lib.add(reference_from_cif(STRUCTURES / f"{cod}.cif")).entry_id
+    yield lib, ids
+    lib.close()
+
+
+def _names(result):
+    return {p.name for p in result.phases}
+
+
+def test_minor_phase_in_binary(library):
+    lib, ids = library
+    scan, _ = simulate([reference("quartz"), reference("rutile")], [0.95, 0.05], zero_shift=0.02, seed=3)
+    res = decompose(scan, lib)
+    assert [p.entry_id for p in res.phases] == [ids["quartz"], ids["rutile"]]
+    minor = res.phases[1]
+    # ±1.5 wt %: the two structure-factor calculators differ by a few % in line intensities
+    # (displacement parameters), i.e. ≲ 1 wt % at this level; the statistical u is ~0.1 wt %.
+    assert abs(minor.weight_fraction - 0.05) < 0.015
+    assert minor.evidence.delta_chi2 > minor.evidence.threshold
+    assert minor.evidence.lines_present >= 0.75 * minor.evidence.lines_checked
+    assert "strongest lines present" in minor.evidence.text
+    assert len(res.unexplained) == 0
+    json.dumps(res.as_dict(), allow_nan=False)
+
+
+def test_four_phases(library):
+    lib, _ = library
+    truth = {"Quartz": 0.45, "Corundum": 0.30, "Calcite": 0.17, "Rutile": 0.08}
+    refs = [reference(k) for k in ("quartz", "corundum", "calcite", "rutile")]
+    scan, _ = simulate(refs, list(truth.values()), zero_shift=-0.03, seed=21)
+    res = decompose(scan, lib)
+    assert _names(res) == set(truth)
+    got = {p.name: p.weight_fraction for p in res.phases}
+    # 2 wt %: calculator differences (see module docstring) over four phases.
+    for name, w in truth.items():
+        assert abs(got[name] - w) < 0.02, name
+    assert sum(got.values()) == pytest.approx(1.0)
+    assert res.rwp < 0.15 and res.gof < 2.0
+
+
+def test_absent_phase_shows_as_unexplained_peaks(library):
+    lib, _ = library
+    hem = reference(ABSENT)
+    scan, _ = simulate([reference("quartz"), hem], [0.6, 0.4], seed=5)
+    res = decompose(scan, lib)
+    assert _names(res) == {"Quartz"}  # nothing forced onto the hematite lines
+    assert len(res.unexplained) >= 4
+    # hematite's three strongest lines (from pymatgen's lines, Cu Kα1) must be among them
+    tt = 2 * np.degrees(np.arcsin(1.54059292 / (2 * hem.lines.d)))
+    strength = hem.lines.multiplicity * hem.lines.f2 * (1 + np.cos(np.radians(tt)) ** 2) / (
+        np.sin(np.radians(tt / 2)) ** 2 * np.cos(np.radians(tt / 2)))
+    strongest = tt[np.argsort(-strength)[:3]]
+    for t in strongest:
+        # 0.1°: about one FWHM; residual peaks are fitted positions of the drawn lines.
+        assert np.min(np.abs(res.unexplained.two_theta - t)) < 0.1, t
+
+
+def test_detection_limit_rises_with_noise(library):
+    lib, ids = library
+    refs = [reference("quartz"), reference("rutile")]
+    limits = []
+    for counts in (20000.0, 2000.0):  # ten times fewer counts: √10 more relative noise
+        scan, _ = simulate(refs, [0.9, 0.1], peak_counts=counts, background=counts / 50, seed=9)
+        res = decompose(scan, lib)
+        lim = {d.entry_id: d.weight_fraction for d in res.detection_limits}
+        limits.append(lim[ids["rutile"]])
+    assert 0 < limits[0] < limits[1] < 1
+    # With counts scaled by 10 the limit scales by about √10 (3.2); 2–5 allows for the
+    # crystalline normalisation and the different fitted backgrounds.
+    assert 2.0 < limits[1] / limits[0] < 5.0
+
+
+def test_internal_standard_gives_absolute_fractions(library):
+    lib, ids = library
+    # Crystalline part: quartz 40, corundum 20, rutile 40 wt %. Declaring the corundum at
+    # 10 wt % of the specimen means half the specimen is not crystalline-identified:
+    # Chung (1974) J. Appl. Cryst. 7, 526 → quartz 0.2, rutile 0.2, rest 0.5.
+    refs = [reference("quartz"), reference("corundum"), reference("rutile")]
+    scan, _ = simulate(refs, [0.4, 0.2, 0.4], seed=13)
+    res = decompose(scan, lib, standard=(ids["corundum"], 0.10))
+    q = res.quantification
+    assert q.basis == "absolute"
+    got = {p.name: p.weight_fraction for p in res.phases}
+    assert got["Corundum"] == pytest.approx(0.10)
+    # 0.015: the two calculators' quartz and corundum intensities differ by about 4 % and 1 %
+    # (measured while writing this test), i.e. ≤ 0.01 at 0.2, plus fitting noise.
+    assert abs(got["Quartz"] - 0.2) < 0.015 and abs(got["Rutile"] - 0.2) < 0.015
+    assert abs(q.rest - 0.5) < 0.025 and q.u_rest > 0
+    d = res.as_dict()
+    assert d["amorphous_or_unidentified"]["weight_fraction"] == pytest.approx(q.rest)
+    assert [p for p in d["phases"] if p["internal_standard"]][0]["entry_id"] == ids["corundum"]
