@@ -52,8 +52,12 @@ class SpaceGroupOps:
     hall: str | None
 
 
-def ops_from_block(block: gemmi.cif.Block, label: str) -> SpaceGroupOps:
+def ops_from_block(block: gemmi.cif.Block, label: str, cell: tuple[float, ...]) -> SpaceGroupOps:
     """Symmetry operations of a CIF block: listed operations first, then Hall, then H-M.
+
+    A rhombohedral H-M symbol without a setting (``R -3``) means the hexagonal axes in
+    ITA, but older files use it with a rhombohedral cell (a = b = c, α = β = γ ≠ 90°); the
+    setting is then taken from the cell.
 
     Raises
     ------
@@ -77,6 +81,8 @@ def ops_from_block(block: gemmi.cif.Block, label: str) -> SpaceGroupOps:
             raise InputError(f"{label}: unknown Hall symbol {hall!r}") from None
     elif hm:
         sg = gemmi.find_spacegroup_by_name(hm)
+        if sg is not None and sg.hm.startswith("R") and ":" not in hm and _rhombohedral_cell(cell):
+            sg = gemmi.find_spacegroup_by_name(f"{sg.hm}:R")
         if sg is None:
             raise InputError(f"{label}: unknown space group {hm!r}", "give the symmetry operations in the CIF")
         group = sg.operations()
@@ -93,6 +99,17 @@ def ops_from_block(block: gemmi.cif.Block, label: str) -> SpaceGroupOps:
         return SpaceGroupOps(rotations, translations, sg.xhm(), sg.number, sg.hall)
     name = hm or (f"Hall {hall}" if hall else "unknown")
     return SpaceGroupOps(rotations, translations, name, None, hall)
+
+
+def _rhombohedral_cell(cell: tuple[float, ...]) -> bool:
+    a, b, c, al, be, ga = cell
+    return abs(a - b) < 1e-3 * a and abs(a - c) < 1e-3 * a and abs(al - be) < 0.01 and abs(al - ga) < 0.01 and abs(al - 90) > 0.01
+
+
+def metric_mismatch(rotations: np.ndarray, metric: np.ndarray) -> float:
+    """Largest |RᵀGR − G| relative to max |G|: 0 when the cell has the group's symmetry."""
+    transformed = np.einsum("oji,jk,okl->oil", rotations, metric, rotations)
+    return float(np.abs(transformed - metric[None]).max() / np.abs(metric).max())
 
 
 def expand_sites(

@@ -24,6 +24,10 @@ VOLUME_TOLERANCE = 0.01
 #: Largest cell edge accepted, Å (protein cells reach a few hundred Å; beyond that a unit is wrong).
 MAX_CELL_EDGE = 1000.0
 
+#: Largest relative change of the metric tensor under a symmetry operation (|RᵀGR − G|/|G|):
+#: cells are quoted to ~1e-4 relative, so a setting that contradicts the cell shows up as ≥ 0.1.
+METRIC_TOLERANCE = 1e-3
+
 _B_FROM_U = 8.0 * np.pi**2
 
 
@@ -179,8 +183,14 @@ def read_crystal(path_or_text: str | Path, *, name_hint: str | None = None) -> C
         raise InputError(f"{label}: {' '.join(str(exc).split())}") from None
 
     cell = _read_cell(block, label)
-    ops = _symmetry.ops_from_block(block, label)
-    sites = list(small.sites)
+    ops = _symmetry.ops_from_block(block, label, cell)
+    if _symmetry.metric_mismatch(ops.rotations, direct_metric(cell)) > METRIC_TOLERANCE:
+        raise InputError(
+            f"{label}: the cell {cell} does not have the symmetry of {ops.name}",
+            "check the cell parameters and the space-group setting",
+        )
+    dummies = _dummy_labels(block)
+    sites = [s for s in small.sites if s.label not in dummies]
     if not sites:
         raise InputError(f"{label} has no atom sites with coordinates")
     site_labels = [s.label for s in sites]
@@ -268,6 +278,15 @@ def _read_cell(block: gemmi.cif.Block, label: str) -> tuple[float, float, float,
             "one of the cell parameters is probably mistyped",
         )
     return cell
+
+
+def _dummy_labels(block: gemmi.cif.Block) -> set[str]:
+    """Labels of sites flagged as dummy atoms (``_atom_site_calc_flag dum``): not real atoms."""
+    labels = list(block.find_values("_atom_site_label"))
+    flags = list(block.find_values("_atom_site_calc_flag"))
+    if not flags or len(flags) != len(labels):
+        return set()
+    return {gemmi.cif.as_string(lab) for lab, f in zip(labels, flags, strict=True) if gemmi.cif.as_string(f).lower() == "dum"}
 
 
 def _element_of(site: gemmi.SmallStructure.Site, label: str) -> str:

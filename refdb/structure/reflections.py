@@ -55,7 +55,9 @@ def miller_sphere(crystal: Crystal, d_min: float) -> tuple[np.ndarray, np.ndarra
     return hkl[inside], inv_d2[inside]
 
 
-def unique_reflections(hkl: np.ndarray, laue: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def unique_reflections(
+    hkl: np.ndarray, inv_d2: np.ndarray, laue: np.ndarray
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """One representative per orbit of the Laue group, with the orbit's size.
 
     The representative is the equivalent with the fewest negative indices, then the largest
@@ -64,7 +66,9 @@ def unique_reflections(hkl: np.ndarray, laue: np.ndarray) -> tuple[np.ndarray, n
     Parameters
     ----------
     hkl : ndarray, shape (n, 3), int
-        Every reflection of a sphere (orbits are complete).
+        Every reflection of a sphere.
+    inv_d2 : ndarray, shape (n,)
+        1/d² of each reflection, Å⁻².
     laue : ndarray, shape (k, 3, 3), int
         Rotation parts of the Laue group.
 
@@ -72,10 +76,14 @@ def unique_reflections(hkl: np.ndarray, laue: np.ndarray) -> tuple[np.ndarray, n
     -------
     rep : ndarray, shape (u, 3), int
     multiplicity : ndarray, shape (u,), int
-    index : ndarray, shape (u,), int
-        Row of ``hkl`` of each representative.
+        Members of each orbit inside the sphere.
+    inv_d2 : ndarray, shape (u,)
+        Mean 1/d² of the members (they agree to rounding when the cell has the group's
+        symmetry; at the sphere's edge an orbit may be cut by rounding, hence the mean).
     """
-    span = np.abs(hkl).max(axis=0) if len(hkl) else np.zeros(3, dtype=np.int64)
+    # Images of a reflection can have larger indices than any member of the sphere (hexagonal
+    # axes map (h, k) to (h + k)); three times the largest index bounds them.
+    span = 3 * (np.abs(hkl).max(axis=0) if len(hkl) else np.zeros(3, dtype=np.int64)) + 1
     base = 2 * span + 1
     lex_size = int(np.prod(base))
 
@@ -83,18 +91,18 @@ def unique_reflections(hkl: np.ndarray, laue: np.ndarray) -> tuple[np.ndarray, n
         lex = ((v[..., 0] + span[0]) * base[1] + (v[..., 1] + span[1])) * base[2] + (v[..., 2] + span[2])
         return (3 - np.sum(v < 0, axis=-1)) * lex_size + lex
 
-    own = key(hkl)
-    canon = np.empty_like(own)
+    canon = np.empty(hkl.shape[0], dtype=np.int64)
     step = max(1, _BLOCK // (3 * laue.shape[0]))
     for start in range(0, hkl.shape[0], step):
         images = np.einsum("ni,kij->nkj", hkl[start : start + step], laue)  # h·R
         canon[start : start + step] = key(images).max(axis=1)
-    index = np.nonzero(own == canon)[0]
-    order = np.argsort(own[index])
-    index = index[order]
-    _, counts = np.unique(canon, return_counts=True)
-    # Representatives and orbit keys, both sorted by key, correspond one to one.
-    return hkl[index], counts.astype(np.int64), index
+    keys, orbit, counts = np.unique(canon, return_inverse=True, return_counts=True)
+    lex = keys % lex_size
+    rep = np.stack(
+        [lex // (base[1] * base[2]) - span[0], (lex // base[2]) % base[1] - span[1], lex % base[2] - span[2]], axis=1
+    )
+    mean_inv_d2 = np.bincount(orbit.ravel(), weights=inv_d2, minlength=keys.size) / counts
+    return rep.astype(np.int64), counts.astype(np.int64), mean_inv_d2
 
 
 def structure_factors(
@@ -118,28 +126,47 @@ def structure_factors(
     ndarray, shape (n,)
     """
     s2 = inv_d2 / 4.0
-    s = np.sqrt(s2)
     species = tuple(scattering.species_name(e, int(c)) for e, c in zip(crystal.elements, crystal.charges, strict=True))
     names, atom_species = np.unique(np.array(species), return_inverse=True)
-    f0 = scattering.f0_table(tuple(names), s)  # (n, n_species)
+    # Atoms sharing a species and a B share f0·exp(−Bs²): the phase sums of a group are one
+    # matrix product (reflections × atoms) @ (atoms × groups) with the occupancies.
+    group_keys = np.stack([atom_species.astype(float), np.round(crystal.b_iso, 6)], axis=1)
+    groups, atom_group = np.unique(group_keys, axis=0, return_inverse=True)
+    atom_group = atom_group.ravel()
+    occ_matrix = np.zeros((crystal.n_atoms, groups.shape[0]))
+    occ_matrix[np.arange(crystal.n_atoms), atom_group] = crystal.occupancy
+    group_species = groups[:, 0].astype(np.int64)
+    group_b = groups[:, 1]
+    f0 = scattering.f0_table(tuple(names), np.sqrt(s2))[:, group_species]  # (n, groups)
+    amplitude = f0 * np.exp(-np.multiply.outer(s2, group_b))  # (n, groups)
     if anomalous:
-        fp = np.array([anomalous[e][0] for e in crystal.elements])
-        fpp = np.array([anomalous[e][1] for e in crystal.elements])
+        first_atom = np.array([np.nonzero(atom_group == g)[0][0] for g in range(groups.shape[0])])
+        element_of_group = [crystal.elements[i] for i in first_atom]
+        fp = np.array([anomalous[e][0] for e in element_of_group])
+        fpp = np.array([anomalous[e][1] for e in element_of_group])
+        thermal = np.exp(-np.multiply.outer(s2, group_b))
+        imaginary = thermal * fpp
+        amplitude = amplitude + thermal * fp
     f2 = np.empty(hkl.shape[0])
+    frac_t = crystal.frac.T.copy()
+    hkl_f = hkl.astype(float)
+    occ32 = occ_matrix.astype(np.float32)
     step = max(1, _BLOCK // max(1, crystal.n_atoms))
     for start in range(0, hkl.shape[0], step):
         rows = slice(start, start + step)
-        phase = 2.0 * np.pi * (hkl[rows] @ crystal.frac.T)  # (b, atoms)
-        weight = crystal.occupancy * np.exp(-np.multiply.outer(s2[rows], crystal.b_iso))  # (b, atoms)
-        cos, sin = np.cos(phase), np.sin(phase)
-        real = f0[rows][:, atom_species] * weight
-        if anomalous:
-            real = real + weight * fp
-        a_re, a_im = np.sum(real * cos, axis=1), np.sum(real * sin, axis=1)
+        cycles = hkl_f[rows] @ frac_t  # (b, atoms), phase in cycles, computed in float64
+        cycles -= np.rint(cycles)  # exact periodicity: the argument stays within ±π
+        # Single-precision trigonometry (vectorised by numpy, ~10× faster than float64) on the
+        # reduced angle: phase errors ≤ 1e-6 rad, i.e. relative |F| errors ≤ 1e-6 per atom.
+        angle = (2.0 * np.pi * cycles).astype(np.float32)
+        cos_sum = (np.cos(angle) @ occ32).astype(float)  # (b, groups)
+        sin_sum = (np.sin(angle) @ occ32).astype(float)
+        a_re = np.sum(amplitude[rows] * cos_sum, axis=1)
+        a_im = np.sum(amplitude[rows] * sin_sum, axis=1)
         f2[rows] = a_re * a_re + a_im * a_im
         if anomalous:
-            imag = weight * fpp
-            b_re, b_im = np.sum(imag * cos, axis=1), np.sum(imag * sin, axis=1)
+            b_re = np.sum(imaginary[rows] * cos_sum, axis=1)
+            b_im = np.sum(imaginary[rows] * sin_sum, axis=1)
             f2[rows] += b_re * b_re + b_im * b_im
     return f2
 
@@ -181,15 +208,14 @@ def compute_reflections(
         raise InputError(f"d_min = {d_min} Å is too small", f"use a value ≥ {D_MIN_LIMIT} Å (0.7 Å is usual)")
     hkl, inv_d2 = miller_sphere(crystal, d_min)
     laue = _symmetry.laue_rotations(crystal.rotations)
-    rep, mult, index = unique_reflections(hkl, laue)
-    inv_d2 = inv_d2[index]
+    rep, mult, inv_d2 = unique_reflections(hkl, inv_d2, laue)
     anomalous = None
     if anomalous_radiation is not None:
         energy = scattering.energy_ev(anomalous_radiation.wavelength)
         anomalous = {e: scattering.anomalous_terms(e, energy) for e in set(crystal.elements)}
     f2 = structure_factors(crystal, rep, inv_d2, anomalous=anomalous)
     strength = f2 * mult
-    keep = strength > relative_cutoff * strength.max() if len(strength) else np.zeros(0, dtype=bool)
+    keep = strength >= relative_cutoff * strength.max() if len(strength) else np.zeros(0, dtype=bool)
     d = 1.0 / np.sqrt(inv_d2[keep])
     rep, mult, f2 = rep[keep], mult[keep], f2[keep]
     order = np.lexsort((-rep[:, 2], -rep[:, 1], -rep[:, 0], -np.round(d, 9)))
