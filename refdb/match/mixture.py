@@ -113,12 +113,14 @@ class Evidence:
     text: str
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class MixturePhase:
     """One identified phase with its refined parameters and weight fraction.
 
     ``weight_fraction`` is 0–1 on the basis of :attr:`MixtureResult.quantification`
-    (NaN when the phase cannot be quantified); uncertainties are 1σ.
+    (NaN when the phase cannot be quantified); uncertainties are 1σ. ``line_two_theta``
+    (degrees) and ``line_intensity`` (strongest = 100), shape (L,), are the phase's primary
+    (Kα1) lines inside the scan at the refined d-scale and shift, for drawing.
     """
 
     name: str
@@ -136,6 +138,8 @@ class MixturePhase:
     width_scale: float
     evidence: Evidence
     is_standard: bool = False
+    line_two_theta: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    line_intensity: np.ndarray = field(default_factory=lambda: np.zeros(0))
 
 
 @dataclass(frozen=True)
@@ -529,7 +533,7 @@ def _assemble(scan, library, ctx, peaks, refs, evidence, fit, rejected, std_inde
                 weight_fraction=float(quant.weight_fraction[i]), u_weight_fraction=float(quant.u_weight_fraction[i]),
                 scale=pf.scale, u_scale=pf.u_scale, zero_shift=pf.zero_shift, displacement=pf.displacement,
                 d_scale=pf.d_scale, u_d_scale=pf.u_d_scale, width_scale=pf.width_scale, evidence=ev,
-                is_standard=(i == std_index),
+                is_standard=(i == std_index), **_drawn_lines(ref, pf, scan),
             ))
         assessed = list(refs) + [e for e in library.get_many(sorted(rejected)) if e.id not in {r.id for r in refs}]
         limits = detection_limits(scan, fit, quant, assessed)
@@ -557,6 +561,24 @@ def _assemble(scan, library, ctx, peaks, refs, evidence, fit, rejected, std_inde
         library_stamp=str(library.stamp()), scan_source=scan.source, radiation=scan.radiation.describe(),
         notes=tuple(notes),
     )
+
+
+def _drawn_lines(ref: ReferenceEntry, pf, scan: Scan) -> dict[str, np.ndarray]:
+    """Kα1 line positions (refined) and relative intensities of a phase inside the scan."""
+    from refdb.geometry import peak_shift
+    from refdb.radiation import radiation_for
+    from refdb.structure.pattern import stick_pattern
+
+    primary = radiation_for(wavelength=scan.radiation.wavelength, monochromator_two_theta=scan.radiation.monochromator_two_theta)
+    lo, hi = float(scan.two_theta[0]), float(scan.two_theta[-1])
+    scaled = replace(ref, lines=replace(ref.lines, d=ref.lines.d * pf.d_scale))
+    st = stick_pattern(scaled, primary, two_theta_range=(max(lo - 1.0, 0.5), min(hi + 1.0, 179.5)),
+                       measured_wavelength=ref.wavelength or primary.wavelength)
+    tt = st.two_theta + peak_shift(st.two_theta, zero_shift=pf.zero_shift, displacement=pf.displacement)
+    inside = (tt >= lo) & (tt <= hi)
+    inten = st.absolute[inside]
+    top = float(inten.max()) if inten.size else 0.0
+    return {"line_two_theta": tt[inside], "line_intensity": inten * (100.0 / top) if top > 0 else inten}
 
 
 def _unexplained(ctx: _Context, peaks: PeakList, fit: RefinementResult | None) -> PeakList:

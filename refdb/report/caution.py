@@ -8,8 +8,8 @@ from __future__ import annotations
 
 #: One short paragraph, plain text (no markup), for people reading a report.
 CAUTION = (
-    "Screening result: the phases, weight fractions and limits above come from matching a "
-    "powder pattern against a reference library and are not a certified analysis. Confirm "
+    "Screening result: phases, weight fractions and detection limits obtained by matching a "
+    "powder pattern against a reference library are not a certified analysis. Confirm "
     "important identifications by an independent method. Regulated determinations — "
     "respirable crystalline silica, asbestos, pharmaceutical release testing — need "
     "accredited methods, the local codes that govern them and licensed practice."

@@ -150,3 +150,24 @@ def march_dollase(hkl, cell, axis, r, space_group) -> np.ndarray:
         cos2 = (h @ gs @ ax) ** 2 / (np.einsum("ij,jk,ik->i", h, gs, h) * (ax @ gs @ ax))
         out += (r * r * cos2 + (1 - cos2) / r) ** -1.5
     return out / len(rots)
+
+
+def build_library(path: Path, *, absent: tuple[str, ...] = ("hematite",)) -> dict[str, int]:
+    """A SQLite library at ``path`` with every phase of :data:`PHASES` but ``absent``,
+    computed by refdb's own structure code; returns key → entry id."""
+    need_structures()
+    from refdb.library import open_library
+    from refdb.structure.reference import reference_from_cif
+
+    ids = {}
+    with open_library(path, create=True) as lib:
+        for key, (cod, _, _) in PHASES.items():
+            if key not in absent:
+                ids[key] = lib.add(reference_from_cif(STRUCTURES / f"{cod}.cif")).entry_id
+    return ids
+
+
+def write_xy(scan: Scan, path: Path) -> Path:
+    """Write a scan as two text columns (2θ, counts)."""
+    np.savetxt(path, np.column_stack([scan.two_theta, scan.counts]), fmt="%.4f")
+    return path

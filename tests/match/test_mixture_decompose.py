@@ -14,7 +14,7 @@ import pytest
 
 from refdb.match.mixture import decompose
 
-from ._mixture_data import PHASES, STRUCTURES, need_structures, reference, simulate
+from ._mixture_data import build_library, reference, simulate
 
 #: In the library: every phase of PHASES except hematite, which plays the unknown.
 ABSENT = "hematite"
@@ -22,15 +22,11 @@ ABSENT = "hematite"
 
 @pytest.fixture(scope="module")
 def library(tmp_path_factory):
-    need_structures()
     from refdb.library import open_library
-    from refdb.structure.reference import reference_from_cif
 
-    lib = open_library(tmp_path_factory.mktemp("lib") / "lib.sqlite", create=True)
-    ids = {}
-    for key, (cod, _, _) in PHASES.items():
-        if key != ABSENT:
-            ids[key] = lib.add(reference_from_cif(STRUCTURES / f"{cod}.cif")).entry_id
+    path = tmp_path_factory.mktemp("lib") / "lib.sqlite"
+    ids = build_library(path, absent=(ABSENT,))
+    lib = open_library(path)
     yield lib, ids
     lib.close()
 
