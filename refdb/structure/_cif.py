@@ -123,7 +123,7 @@ def value(block: gemmi.cif.Block, *tags: str) -> str | None:
     return None
 
 
-def number(block: gemmi.cif.Block, tag: str) -> float | None:
+def number(block: gemmi.cif.Block, tag: str, label: str = "CIF") -> float | None:
     """A numeric item without its standard uncertainty, e.g. ``5.4307(2)`` → 5.4307."""
     text = value(block, tag)
     if text is None:
@@ -131,7 +131,7 @@ def number(block: gemmi.cif.Block, tag: str) -> float | None:
     try:
         return float(re.sub(r"\(\d+\)$", "", text))
     except ValueError:
-        raise InputError(f"{tag} = {text!r} is not a number") from None
+        raise InputError(f"{label}: {tag} = {text!r} is not a number") from None
 
 
 def values(block: gemmi.cif.Block, tag: str) -> list[str]:

@@ -24,6 +24,9 @@ from refdb.structure import _cif
 #: coordinates to 3–5 decimals (up to ~0.02 Å in a 20 Å cell); genuinely split (disordered)
 #: positions of one site lie further apart, typically ≥ 0.3 Å (common practice, no source).
 SPECIAL_POSITION_TOLERANCE = 0.1
+#: Two atoms cannot be closer than ~0.7 Å (the H–H bond, 0.74 Å); distinct images of one site
+#: closer than this are alternative positions of one atom (a split site).
+CROWDING_DISTANCE = 0.7
 
 
 @dataclass(frozen=True, eq=False)
@@ -133,12 +136,16 @@ def expand_sites(
         Fractional coordinates in [0, 1).
     site_index : ndarray, shape (m,), int
         Row of ``frac`` that each atom comes from.
+    crowding : ndarray, shape (m,), int
+        Number of distinct images of the same site within :data:`CROWDING_DISTANCE` of each
+        atom (itself included): more than 1 marks a split (disordered) position.
     """
     n_ops = ops.rotations.shape[0]
     images = np.einsum("oij,nj->noi", ops.rotations, frac) + ops.translations[None, :, :]
     images = np.mod(images, 1.0)  # (n, o, 3)
     earlier = np.triu(np.ones((n_ops, n_ops), dtype=bool), k=1)  # [i, j]: i < j
     keep = np.empty(images.shape[:2], dtype=bool)
+    crowd = np.empty(images.shape[:2], dtype=np.int64)
     # Blocks of sites keep the (sites, o, o, 3) difference array near 16 MB for 192 operations.
     step = max(1, 2_000_000 // (n_ops * n_ops * 3))
     for start in range(0, images.shape[0], step):
@@ -146,11 +153,14 @@ def expand_sites(
         diff = block[:, :, None, :] - block[:, None, :, :]  # (b, o, o, 3)
         diff -= np.rint(diff)
         dist = np.linalg.norm(diff @ cell_matrix, axis=-1)  # (b, o, o)
-        keep[start : start + step] = ~np.any((dist < tolerance) & earlier[None, :, :], axis=1)
+        first = ~np.any((dist < tolerance) & earlier[None, :, :], axis=1)  # (b, o)
+        keep[start : start + step] = first
+        # Distinct images of one site closer than CROWDING_DISTANCE share the site.
+        crowd[start : start + step] = np.sum((dist < CROWDING_DISTANCE) & first[:, :, None], axis=1)
     site_index = np.nonzero(keep)[0]
     positions = images[keep]
     positions = np.where(positions >= 1.0 - 1e-12, 0.0, positions)
-    return positions, site_index
+    return positions, site_index, crowd[keep]
 
 
 def laue_rotations(rotations: np.ndarray) -> np.ndarray:

@@ -23,6 +23,9 @@ from refdb.structure import _cif, _symmetry, scattering
 VOLUME_TOLERANCE = 0.01
 #: Largest cell edge accepted, Å (protein cells reach a few hundred Å; beyond that a unit is wrong).
 MAX_CELL_EDGE = 1000.0
+#: Shortest cell edge accepted, Å: the shortest cell edges of real crystals are ~2 Å (lithium,
+#: diamond 2.5 Å in hexagonal settings); below 1 Å the lengths are almost surely in nm.
+MIN_CELL_EDGE = 1.0
 
 #: Largest relative change of the metric tensor under a symmetry operation (|RᵀGR − G|/|G|):
 #: cells are quoted to ~1e-4 relative, so a setting that contradicts the cell shows up as ≥ 0.1.
@@ -208,9 +211,20 @@ def read_crystal(path_or_text: str | Path, *, name_hint: str | None = None) -> C
     if b_warning:
         warnings.append(f"{label}: {b_warning}")
 
-    positions, site_index = _symmetry.expand_sites(frac, ops, cell_matrix(cell))
+    positions, site_index, crowding = _symmetry.expand_sites(frac, ops, cell_matrix(cell))
     keep = occ[site_index] > 0
-    positions, site_index = positions[keep], site_index[keep]
+    positions, site_index, crowding = positions[keep], site_index[keep], crowding[keep]
+    atom_occ = np.minimum(occ[site_index], 1.0)
+    # A site whose images crowd closer than a bond can hold at most one atom among them: a
+    # split position given without its fractional occupancy.
+    crowded = atom_occ * crowding > 1.0 + 1e-3
+    if np.any(crowded):
+        atom_occ = np.where(crowded, 1.0 / crowding, atom_occ)
+        names = sorted({site_labels[i] for i in site_index[crowded]})
+        warnings.append(
+            f"{label}: symmetry images of {', '.join(names)} lie closer than "
+            f"{_symmetry.CROWDING_DISTANCE} Å (a split position); their occupancy is shared"
+        )
     if positions.shape[0] == 0:
         raise InputError(f"{label}: every site has zero occupancy")
 
@@ -223,7 +237,7 @@ def read_crystal(path_or_text: str | Path, *, name_hint: str | None = None) -> C
         or formula
         or block.name
     )
-    z = _cif.number(block, "_cell_formula_units_Z")
+    z = _cif.number(block, "_cell_formula_units_Z", label)
     return Crystal(
         name=name,
         formula=formula,
@@ -237,7 +251,7 @@ def read_crystal(path_or_text: str | Path, *, name_hint: str | None = None) -> C
         elements=tuple(elements[i] for i in site_index),
         charges=charges[site_index],
         frac=positions,
-        occupancy=np.minimum(occ[site_index], 1.0),
+        occupancy=atom_occ,
         b_iso=b_iso[site_index],
         z=z if z and z > 0 else None,
         database_code=_cif.value(block, "_cod_database_code"),
@@ -254,7 +268,7 @@ def read_crystal(path_or_text: str | Path, *, name_hint: str | None = None) -> C
 
 def _read_cell(block: gemmi.cif.Block, label: str) -> tuple[float, float, float, float, float, float]:
     tags = ("_cell_length_a", "_cell_length_b", "_cell_length_c", "_cell_angle_alpha", "_cell_angle_beta", "_cell_angle_gamma")
-    vals = [_cif.number(block, t) for t in tags]
+    vals = [_cif.number(block, t, label) for t in tags]
     missing = [t for t, v in zip(tags, vals, strict=True) if v is None and "length" in t]
     if missing:
         raise InputError(f"{label}: no unit cell ({', '.join(missing)} missing)")
@@ -262,6 +276,10 @@ def _read_cell(block: gemmi.cif.Block, label: str) -> tuple[float, float, float,
     alpha, beta, gamma = (90.0 if v is None else v for v in vals[3:])  # CIF default: 90°
     if min(a, b, c) <= 0 or max(a, b, c) > MAX_CELL_EDGE:
         raise InputError(f"{label}: cell lengths {a}, {b}, {c} Å are not physical", "lengths are in Å")
+    if min(a, b, c) < MIN_CELL_EDGE:
+        raise InputError(
+            f"{label}: cell length {min(a, b, c)} Å is shorter than any crystal's", "lengths are in Å, not nm"
+        )
     angles = np.radians([alpha, beta, gamma])
     if np.any(angles <= 0) or np.any(angles >= np.pi):
         raise InputError(f"{label}: cell angles {alpha}, {beta}, {gamma}° are outside 0–180°")
@@ -270,7 +288,7 @@ def _read_cell(block: gemmi.cif.Block, label: str) -> tuple[float, float, float,
     if factor <= 1e-6:
         raise InputError(f"{label}: cell angles {alpha}, {beta}, {gamma}° do not close a cell")
     cell = (float(a), float(b), float(c), float(alpha), float(beta), float(gamma))
-    given = _cif.number(block, "_cell_volume")
+    given = _cif.number(block, "_cell_volume", label)
     volume = a * b * c * np.sqrt(factor)
     if given is not None and abs(given - volume) > VOLUME_TOLERANCE * volume:
         raise InputError(
