@@ -10,8 +10,9 @@ Procedure (:func:`decompose`)
    phases already accepted (scales only, at the candidate's own shift and d-scale), and try
    them in order of the improvement in χ² they bring. The first one that passes the
    acceptance test below is added, the whole mixture is refined
-   (:func:`refdb.match.refine.refine_mixture`), its calculated pattern is subtracted, and
-   the residual scan's peaks feed the next round's search.
+   (:func:`refdb.match.refine.refine_mixture`), and the scan's peaks that the refined
+   mixture does not account for (net counts above the calculated ones by 3σ and by
+   :data:`MISFIT_FRACTION`) feed the next round's search.
 3. Stop when no candidate passes, no significant residual peak is left, or ``max_phases``
    are accepted. Then refine all phases together and drop, one at a time, any phase whose
    removal no longer fails the same test (a phase accepted early can be made redundant by
@@ -73,6 +74,8 @@ STRONG_LINES_CHECKED = 8
 LINE_PRESENT_RATIO = 0.4
 #: A residual peak on an identified line must exceed this fraction of the line's height.
 MISFIT_FRACTION = 0.10
+#: Standard deviations a residual peak needs to be reported as unexplained.
+UNEXPLAINED_SIGMA = 5.0
 #: Unexplained peaks listed at most.
 MAX_UNEXPLAINED = 15
 
@@ -263,6 +266,10 @@ def decompose(
     from refdb.match.search import search
     from refdb.scan.peaks import find_peaks
 
+    from refdb.match.quant import METHODS
+
+    if quant_method.strip().lower() not in METHODS:
+        raise InputError(f"unknown quantification method {quant_method!r}", f"choose one of {', '.join(METHODS)}")
     if not 1 <= max_phases <= 12:
         raise InputError(f"max_phases must be 1–12, not {max_phases}")
     if candidates_per_round < 1:
@@ -422,26 +429,30 @@ class _Context:
     def gof_floor(fit: RefinementResult | None) -> float:
         return max(fit.gof, 1.0) if fit is not None else 1.0
 
-    def residual_peaks(self, peaks: PeakList, fit: RefinementResult | None, *, misfit: bool = True) -> PeakList:
+    def residual_peaks(self, peaks: PeakList, fit: RefinementResult | None, *, k_sigma: float = 3.0) -> PeakList:
         """The scan's peaks that the phases of ``fit`` leave unexplained (module docstring).
 
         At each peak the net observed counts (counts − background, averaged over the point and
         its two neighbours) are compared with the phases' calculated counts; a peak stays when
-        the excess exceeds 3σ·√max(GoF, 1) and, with ``misfit``, :data:`MISFIT_FRACTION` of
-        the calculated counts. Its height becomes the excess.
+        the excess exceeds ``k_sigma`` standard deviations of that average, scaled by
+        √max(GoF, 1), and :data:`MISFIT_FRACTION` of the calculated counts. Its height
+        becomes the excess. Without a fit the SNIP background is used and nothing is
+        calculated.
         """
-        if fit is None or not fit.phases or len(peaks) == 0:
+        if len(peaks) == 0:
             return peaks
-        x = fit.two_theta
+        if fit is None or not fit.phases:
+            x, obs_all, bkg, calc = self.scan.two_theta, self.scan.counts, self.background, None
+            sigma, gof = self.scan.sigma, 1.0
+        else:
+            x, obs_all, bkg, calc = fit.two_theta, fit.observed, fit.background, fit.calculated - fit.background
+            sigma, gof = fit.sigma, self.gof_floor(fit)
         i = np.clip(np.searchsorted(x, peaks.two_theta), 1, x.size - 2)
-        net = fit.observed - fit.background
-        calc = fit.calculated - fit.background
+        net = obs_all - bkg
         obs = (net[i - 1] + net[i] + net[i + 1]) / 3.0
-        model = (calc[i - 1] + calc[i] + calc[i + 1]) / 3.0
+        model = np.zeros_like(obs) if calc is None else (calc[i - 1] + calc[i] + calc[i + 1]) / 3.0
         excess = obs - model
-        floor = 3.0 * fit.sigma[i] / np.sqrt(3.0) * math.sqrt(self.gof_floor(fit))
-        if misfit:
-            floor = np.maximum(floor, MISFIT_FRACTION * model)
+        floor = np.maximum(k_sigma * sigma[i] / np.sqrt(3.0) * math.sqrt(gof), MISFIT_FRACTION * model)
         keep = np.flatnonzero(excess > floor)
         frac = np.clip(excess[keep] / np.maximum(obs[keep], 1e-9), 0.0, 1.0)
         return _take(peaks, keep, frac)
@@ -584,13 +595,14 @@ def _drawn_lines(ref: ReferenceEntry, pf, scan: Scan) -> dict[str, np.ndarray]:
 def _unexplained(ctx: _Context, peaks: PeakList, fit: RefinementResult | None) -> PeakList:
     """Residual peaks above the noise, strongest first, at most :data:`MAX_UNEXPLAINED`.
 
-    See :meth:`_Context.residual_peaks`: a residual peak must exceed 3σ·√GoF (a poor fit
-    raises the bar) and, where it sits on a line of an identified phase, 10 % of that line's
+    See :meth:`_Context.residual_peaks`: a residual peak must exceed
+    :data:`UNEXPLAINED_SIGMA` σ·√GoF (a poor fit raises the bar; 5σ rather than the 3σ used
+    to seed the search rounds, so that noise is not reported as a missing phase) and, where it sits on a line of an identified phase, 10 % of that line's
     calculated height — a smaller excess there is a misfit of the line's intensity or shape,
     not evidence of another phase (common practice, no source). A minor phase hidden under a
     major line is therefore missed.
     """
-    left = ctx.residual_peaks(peaks, fit)
+    left = ctx.residual_peaks(peaks, fit, k_sigma=UNEXPLAINED_SIGMA)
     order = np.sort(np.argsort(-left.height)[:MAX_UNEXPLAINED])
     return _take(left, order)
 

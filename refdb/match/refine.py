@@ -599,11 +599,6 @@ def phase_profile(
     return model.profile(0, theta)
 
 
-def scale_only(scan: Scan, phases: Sequence[ReferenceData], **kwargs) -> RefinementResult:
-    """Shorthand for :func:`refine_mixture` with ``refine=False`` (scales and background only)."""
-    return refine_mixture(scan, phases, refine=False, **kwargs)
-
-
 __all__ = [
     "DEFAULT_CAGLIOTI",
     "PhaseFit",
@@ -612,6 +607,5 @@ __all__ = [
     "caglioti_from_widths",
     "phase_profile",
     "refine_mixture",
-    "scale_only",
     "snip_background",
 ]

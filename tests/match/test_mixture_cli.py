@@ -7,6 +7,8 @@ import io
 import json
 
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from typer.testing import CliRunner
 
 from refdb.cli.app import app
@@ -75,13 +77,14 @@ def test_unmix_bad_options_one_line_error(setup, args, needle, tmp_path, monkeyp
     r = run(db, "unmix", str(good), "--anode", "Cu", *args)
     assert r.exit_code == 1
     assert needle in r.stderr and "Traceback" not in r.stderr
-    assert r.stderr.strip().startswith("Error:")
+    assert r.stderr.strip().splitlines()[-1].startswith("Error:")
 
 
 def test_unmix_bad_scan_and_missing_library(setup, tmp_path):
     db, _, _, scans = setup
     r = run(db, "unmix", str(scans / "b_bad.xy"), "--anode", "Cu")
-    assert r.exit_code == 1 and r.stderr.startswith("Error:") and "Traceback" not in r.stderr
+    assert r.exit_code == 1 and r.stderr.strip().splitlines()[-1].startswith("Error:")
+    assert "Traceback" not in r.stderr
     r = run(str(tmp_path / "nowhere.sqlite"), "unmix", str(setup[2]), "--anode", "Cu")
     assert r.exit_code == 1 and "no refdb library" in r.stderr
 
@@ -114,3 +117,26 @@ def test_commands_have_help():
     for name in ("unmix", "batch"):
         r = runner.invoke(app, [name, "--help"])
         assert r.exit_code == 0 and len(r.stdout) > 200
+
+
+@settings(max_examples=80, deadline=None)
+@given(st.integers(1, 10**9), st.floats(0.0001, 0.9999))
+def test_standard_option_round_trip(entry, fraction):
+    from refdb.cli.mixture_cmds import _standard
+
+    ident, value = _standard(f"{entry}:{fraction!r}")
+    assert ident == entry and value == pytest.approx(fraction, rel=1e-12)
+    ident, value = _standard(f"{entry}:{100 * fraction!r}%")
+    assert ident == entry and value == pytest.approx(fraction, rel=1e-9)
+
+
+@given(st.text(max_size=20).filter(lambda t: ":" not in t))
+def test_standard_option_without_colon_is_refused(text):
+    from refdb.cli.mixture_cmds import _standard
+    from refdb.errors import InputError
+
+    if not text:
+        assert _standard(text) is None
+        return
+    with pytest.raises(InputError):
+        _standard(text)

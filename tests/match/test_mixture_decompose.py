@@ -12,6 +12,7 @@ import json
 import numpy as np
 import pytest
 
+from refdb.errors import InputError
 from refdb.match.mixture import decompose
 
 from ._mixture_data import build_library, reference, simulate
@@ -117,3 +118,29 @@ def test_internal_standard_gives_absolute_fractions(library):
     d = res.as_dict()
     assert d["amorphous_or_unidentified"]["weight_fraction"] == pytest.approx(q.rest)
     assert [p for p in d["phases"] if p["internal_standard"]][0]["entry_id"] == ids["corundum"]
+
+
+def test_background_only_scan_gives_nothing(library):
+    lib, _ = library
+    from refdb.scan.types import Scan
+
+    from ._mixture_data import cu_radiation
+
+    x = np.arange(10.0, 80.0, 0.02)
+    counts = np.random.default_rng(4).poisson(300.0 - 2.0 * (x - 10.0)).astype(float)
+    scan = Scan(x, counts, np.sqrt(np.maximum(counts, 1.0)), cu_radiation(), source="flat")
+    res = decompose(scan, lib)
+    assert res.phases == () and res.fit is None and len(res.unexplained) == 0
+    assert res.quantification is None and res.detection_limits == ()
+    json.dumps(res.as_dict(), allow_nan=False)
+
+
+def test_bad_options(library):
+    lib, _ = library
+    scan, _ = simulate([reference("zincite")], [1.0], seed=1)
+    with pytest.raises(InputError):
+        decompose(scan, lib, max_phases=0)
+    with pytest.raises(InputError):
+        decompose(scan, lib, candidates_per_round=0)
+    with pytest.raises(InputError):
+        decompose(scan, lib, standard=(10_000, 0.2))
