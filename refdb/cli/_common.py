@@ -17,7 +17,9 @@ from refdb.errors import RefdbError
 F = TypeVar("F", bound=Callable[..., Any])
 
 #: Data goes to stdout; messages, warnings and progress go to stderr.
-out = Console(highlight=False, soft_wrap=True)
+# When output goes to a file or pipe there is no terminal width to respect; tables are laid out
+# for 160 columns instead of rich's default 80, so they stay readable in logs.
+out = Console(highlight=False, width=None if sys.stdout.isatty() else 160)
 err = Console(stderr=True, highlight=False, soft_wrap=True)
 
 JsonOpt = Annotated[bool, typer.Option("--json", help="Write machine-readable JSON to stdout.")]

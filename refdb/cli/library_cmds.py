@@ -107,14 +107,19 @@ def list_entries(
         )
         return
     table = Table(title=f"{len(rows)} entr{'y' if len(rows) == 1 else 'ies'}", title_justify="left")
-    for col, kw in (("id", {"justify": "right"}), ("kind", {}), ("name", {}), ("formula", {}),
-                    ("space group", {}), ("source", {}), ("lines", {"justify": "right"}), ("tags", {})):
-        table.add_column(col, **kw)
+    table.add_column("id", justify="right", no_wrap=True)
+    table.add_column("kind", no_wrap=True)
+    table.add_column("name", max_width=30, no_wrap=True, overflow="ellipsis")
+    table.add_column("formula", max_width=24, no_wrap=True, overflow="ellipsis")
+    table.add_column("space group", no_wrap=True)
+    table.add_column("source id", max_width=18, no_wrap=True, overflow="ellipsis")
+    table.add_column("lines", justify="right", no_wrap=True)
+    table.add_column("tags", max_width=20, overflow="ellipsis")
     for r in rows:
-        name = r.name if not r.mineral_name or r.mineral_name == r.name else f"{r.name} ({r.mineral_name})"
+        name = r.mineral_name or r.name
         table.add_row(
             str(r.id), r.kind, name, r.formula_reduced, r.space_group or "",
-            f"{r.source} {r.source_id or ''}".strip(), str(r.n_lines), " ".join(r.tags),
+            r.source_id or "", str(r.n_lines), " ".join(r.tags),
         )
     out.print(table)
 
