@@ -50,7 +50,8 @@ def miller_sphere(crystal: Crystal, d_min: float) -> tuple[np.ndarray, np.ndarra
     limits = np.floor(np.array(crystal.cell[:3]) / d_min + 1e-9).astype(np.int64)
     axes = [np.arange(-m, m + 1, dtype=np.int64) for m in limits]
     hkl = np.stack(np.meshgrid(*axes, indexing="ij"), axis=-1).reshape(-1, 3)
-    inv_d2 = np.einsum("ni,ij,nj->n", hkl, gstar, hkl)
+    hkl_f = hkl.astype(float)
+    inv_d2 = np.sum((hkl_f @ gstar) * hkl_f, axis=1)
     inside = (inv_d2 > 0) & (inv_d2 <= (1.0 + 1e-12) / (d_min * d_min))
     return hkl[inside], inv_d2[inside]
 
@@ -87,22 +88,29 @@ def unique_reflections(
     base = 2 * span + 1
     lex_size = int(np.prod(base))
 
-    def key(v: np.ndarray) -> np.ndarray:  # v (..., 3) → scalar keys, larger = preferred
-        lex = ((v[..., 0] + span[0]) * base[1] + (v[..., 1] + span[1])) * base[2] + (v[..., 2] + span[2])
-        return (3 - np.sum(v < 0, axis=-1)) * lex_size + lex
-
+    # Keys are exact integers below 2**53, so float64 arithmetic (BLAS) is exact here.
+    # Stage 1, every reflection: the orbit is named by its lexicographically largest member,
+    # whose key h·R·w is one matrix product for all R.
+    weights = np.array([base[1] * base[2], base[2], 1], dtype=float)
+    offset = float(span @ weights)
+    n_ops = laue.shape[0]
+    lex_of_ops = (laue.astype(float) @ weights).T  # (3, k): column j is R_j·w
+    hkl_f = hkl.astype(float)
     canon = np.empty(hkl.shape[0], dtype=np.int64)
-    step = max(1, _BLOCK // (3 * laue.shape[0]))
+    step = max(1, _BLOCK // n_ops)
     for start in range(0, hkl.shape[0], step):
-        images = np.einsum("ni,kij->nkj", hkl[start : start + step], laue)  # h·R
-        canon[start : start + step] = key(images).max(axis=1)
+        canon[start : start + step] = np.rint((hkl_f[start : start + step] @ lex_of_ops).max(axis=1) + offset)
     keys, orbit, counts = np.unique(canon, return_inverse=True, return_counts=True)
-    lex = keys % lex_size
-    rep = np.stack(
-        [lex // (base[1] * base[2]) - span[0], (lex // base[2]) % base[1] - span[1], lex % base[2] - span[2]], axis=1
-    )
+    # The key is (h + span)·w, a mixed-radix number whose digits are the shifted indices.
+    first = np.stack([keys // (base[1] * base[2]), (keys // base[2]) % base[1], keys % base[2]], axis=1) - span
+    # Stage 2, one member per orbit: prefer the member with the fewest negative indices.
+    ops = laue.transpose(1, 0, 2).reshape(3, 3 * n_ops).astype(float)
+    images = (first.astype(float) @ ops).reshape(-1, n_ops, 3)  # (u, k, 3)
+    score = (3.0 - np.count_nonzero(images < 0, axis=2)) * lex_size + images @ weights
+    best = np.argmax(score, axis=1)
+    rep = np.rint(images[np.arange(images.shape[0]), best]).astype(np.int64)
     mean_inv_d2 = np.bincount(orbit.ravel(), weights=inv_d2, minlength=keys.size) / counts
-    return rep.astype(np.int64), counts.astype(np.int64), mean_inv_d2
+    return rep, counts.astype(np.int64), mean_inv_d2
 
 
 def structure_factors(

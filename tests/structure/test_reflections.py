@@ -221,3 +221,68 @@ def test_two_theta_and_d_round_trip(d, anode):
         assert float(d_from_two_theta(tt, lam)) == pytest.approx(d, rel=1e-10)  # float rounding only
     else:
         assert d < lam / 2
+
+
+# ------------------------------------------------------------- settings and low symmetry
+
+def _merged_pair(a, b) -> tuple[np.ndarray, np.ndarray]:
+    """Σ m·|F|² per d-spacing of two line lists on a common set of d (what a powder pattern can
+    see): d-spacings within 1e-9 relative are one, and a d missing on one side gives 0."""
+    d = np.concatenate([a.d, b.d])
+    order = np.argsort(d)
+    group = np.empty(d.size, dtype=np.int64)
+    group[order] = np.concatenate([[0], np.cumsum(np.diff(d[order]) > 1e-9 * d[order][1:])])
+    n = int(group.max()) + 1
+    sa = np.bincount(group[: len(a.d)], weights=a.multiplicity * a.f2, minlength=n)
+    sb = np.bincount(group[len(a.d) :], weights=b.multiplicity * b.f2, minlength=n)
+    return sa, sb
+
+
+def _p1_text(cell, elements, frac, b_iso) -> str:
+    atoms = [(f"{e}{i}", e, *np.round(x, 10), 1.0, b) for i, (e, x, b) in enumerate(zip(elements, frac, b_iso))]
+    return make_cif(cell, atoms, space_group="P 1")
+
+
+def _assert_same_powder_pattern(a, b):
+    """Σ m|F|² per d equal within 1e-5 relative (float32 phases). The weak-line cutoff (1e-6
+    of the strongest m|F|²) acts on orbits, which are smaller in lower symmetry, so lines near
+    it can fall on either side; 2e-6 of the strongest covers that."""
+    sa, sb = _merged_pair(a, b)
+    np.testing.assert_allclose(sb, sa, rtol=1e-5, atol=2e-6 * sa.max())
+    assert np.array_equal(sa > 1e-3 * sa.max(), sb > 1e-3 * sa.max())
+
+
+def test_low_symmetry_structure_equals_its_p1_expansion(shared_structures):
+    """Diopside (C2/c, COD 1000007) and the same atoms listed in P1: merging by the monoclinic
+    Laue class must give the same powder pattern as merging only Friedel pairs."""
+    crystal = read_crystal(shared_structures / "1000007.cif")
+    p1 = read_crystal(_p1_text(crystal.cell, crystal.elements, crystal.frac, crystal.b_iso))
+    _assert_same_powder_pattern(compute_reflections(crystal, d_min=1.0), compute_reflections(p1, d_min=1.0))
+
+
+def test_hexagonal_and_rhombohedral_settings_agree():
+    """Corundum (R-3c) in hexagonal axes, and the same atoms in the primitive rhombohedral cell
+    (obverse setting, ITA Vol. A Table 5.1.3.1: a_r = (2a + b + c)/3, b_r = (−a + b + c)/3,
+    c_r = (−a − 2b + c)/3) written in P1: one powder pattern."""
+    from refdb.structure import corundum_reference
+
+    hexagonal = read_crystal(corundum_reference().structure_text)
+    a, c = hexagonal.cell[0], hexagonal.cell[2]
+    p = np.array([[2, -1, -1], [1, 1, -2], [1, 1, 1]], dtype=float) / 3.0  # columns: a_r, b_r, c_r in hex
+    frac_r = np.mod(hexagonal.frac @ np.linalg.inv(p).T, 1.0)
+    frac_r, index = np.unique(np.round(frac_r, 6) % 1.0, axis=0, return_index=True)
+    assert frac_r.shape[0] == 10  # Z = 2 Al2O3 in the rhombohedral cell
+    a_r = np.sqrt(3 * a * a + c * c) / 3
+    alpha = np.degrees(np.arccos((2 * c * c - 3 * a * a) / (2 * c * c + 6 * a * a)))
+    text = _p1_text((a_r, a_r, a_r, alpha, alpha, alpha), [hexagonal.elements[i] for i in index], frac_r, hexagonal.b_iso[index])
+    rhombohedral = read_crystal(text)
+    # Same species on both sides (the P1 file has no charges: compare neutral atoms).
+    from dataclasses import replace
+
+    neutral = replace(hexagonal, charges=np.zeros_like(hexagonal.charges))
+    hex_lines = compute_reflections(neutral, d_min=0.9)
+    rh_lines = compute_reflections(rhombohedral, d_min=0.9)
+    # |F|² per cell scales with the square of the cell contents: the hexagonal cell holds three
+    # rhombohedral cells, so its m|F|² per d is 9 times larger.
+    scaled = replace(rh_lines, f2=rh_lines.f2 * 9.0)
+    _assert_same_powder_pattern(hex_lines, scaled)
