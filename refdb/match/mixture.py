@@ -35,8 +35,12 @@ A phase is accepted only when both hold:
   observed counts within ±1 FWHM (observed minus all other phases and background) must reach
   at least :data:`LINE_PRESENT_RATIO` of what the phase predicts there. A phase whose
   strongest line is missing, or with more than a quarter of its strong lines missing, is
-  rejected — so a phase absent from the library leaves its peaks unexplained rather than
-  being forced onto an entry that shares a few lines with it.
+  rejected. At least :data:`MIN_OWN_LINES` of the present lines must be its *own*: lines
+  where it gives at least :data:`OWN_LINE_SHARE` of the calculated counts, so that its
+  evidence does not rest only on peaks that other phases also explain (a high-symmetry
+  phase with few lines can otherwise hide in the lines of others). So a phase absent from
+  the library leaves its peaks unexplained rather than being forced onto an entry that
+  shares a few lines with it.
 
 References: Hill & Howard (1987) J. Appl. Cryst. 20, 467 (weight fractions); Chung (1974)
 J. Appl. Cryst. 7, 519 (reference intensity ratios); Golub & Pereyra (1973) SIAM J. Numer.
@@ -58,7 +62,10 @@ from refdb.match.quant import Quantification, quantify
 from refdb.match.refine import (
     PhaseStart,
     RefinementResult,
+    _chebyshev_basis,
+    _solve_linear,
     caglioti_from_widths,
+    phase_profile,
     refine_mixture,
     snip_background,
 )
@@ -72,6 +79,10 @@ PARAMETERS_PER_PHASE = 3
 STRONG_LINES_CHECKED = 8
 #: Net observed / predicted counts a line needs to count as present.
 LINE_PRESENT_RATIO = 0.4
+#: A line is the phase's "own" where it gives at least this share of the calculated counts.
+OWN_LINE_SHARE = 0.5
+#: Present own lines a phase needs (its evidence must not rest only on other phases' lines).
+MIN_OWN_LINES = 2
 #: A residual peak on an identified line must exceed this fraction of the line's height.
 MISFIT_FRACTION = 0.10
 #: Standard deviations a residual peak needs to be reported as unexplained.
@@ -328,20 +339,19 @@ def decompose(
             break
         entries = {e.id: e for e in library.get_many([c.entry_id for c in cands])}
         trials = []
-        for c in cands:  # a handful of quick scale-only fits per round
+        for c in cands:  # a handful of scale-only trials per round
             ref = entries.get(c.entry_id)
             if ref is None:
                 continue
             st = PhaseStart(zero_shift=c.zero_shift, displacement=c.displacement, d_scale=1.0 + c.d_scale)
             if fit is not None and fit.phases:  # the specimen's shift is shared and already refined
                 st = replace(st, zero_shift=fit.phases[0].zero_shift, displacement=fit.phases[0].displacement)
-            quick = ctx.refine(refs + [ref], _carry(fit, starts) + [st], quick=True)
-            trials.append((chi2_now - quick.chi2, c, ref, st))
+            trials.append((ctx.gain_with(fit, chi2_now, ref, st), c, ref, st))
         trials.sort(key=lambda t: -t[0])
         accepted = False
         for gain, c, ref, st in trials:
-            if gain / ctx.gof_floor(fit) <= threshold:
-                why = f"Δχ²/GoF {gain / ctx.gof_floor(fit):.0f} not above {threshold:.0f}"
+            if gain <= threshold:
+                why = f"Δχ²/GoF {gain:.0f} not above {threshold:.0f}"
                 rejected[c.entry_id] = Rejection(c.name, c.formula, c.entry_id, why)
                 continue
             trial_fit = ctx.refine(refs + [ref], _carry(fit, starts) + [st])
@@ -357,21 +367,23 @@ def decompose(
         if not accepted:
             break
 
-    # Final check: drop phases that later ones made redundant (never the declared standard).
+    # Final check on the joint fit: drop, weakest first, phases that later ones made redundant
+    # or whose own lines no longer stand (never the declared standard).
     while fit is not None and len(refs) > (1 if std_index is not None else 0):
-        worst, worst_gain = None, math.inf
+        worst, worst_gain, why = None, math.inf, ""
         for p in range(len(refs)):
-            if p == std_index or len(refs) == 1:
+            if p == std_index:
                 continue
-            keep = [i for i in range(len(refs)) if i != p]
-            without = ctx.refine([refs[i] for i in keep], [_carry(fit, starts)[i] for i in keep], quick=True)
-            gain = (without.chi2 - fit.chi2) / ctx.gof_floor(fit)
-            if gain < worst_gain:
+            gain = ctx.gain_of(fit, p)
+            objection = _line_objection(_check_lines(fit, p))
+            if (gain <= threshold or objection) and gain < worst_gain:
                 worst, worst_gain = p, gain
-        if worst is None or worst_gain > threshold:
+                why = objection or f"redundant once other phases were refined (Δχ²/GoF {gain:.0f})"
+        if worst is None:
             break
         e = refs[worst]
-        rejected[e.id] = Rejection(e.name, e.formula, e.id, f"redundant once other phases were refined (Δχ² {worst_gain:.0f})")
+        rejected[e.id] = Rejection(e.name, e.formula, e.id, why)
+        starts = _carry(fit, starts)
         del refs[worst], starts[worst], evidence[worst]
         fit = ctx.refine(refs, starts) if refs else None
 
@@ -387,11 +399,13 @@ class _Verdict:
     threshold: float
     present: int
     checked: int
+    own: int = 0
 
     def evidence(self, score: float, rnd: int) -> Evidence:
         text = (
             f"adds Δχ²/GoF = {self.delta:.0f} (needed > {self.threshold:.0f}); "
-            f"{self.present} of {self.checked} strongest lines present; search score {score:.0f}"
+            f"{self.present} of {self.checked} strongest lines present, {self.own} of them its own; "
+            f"search score {score:.0f}"
         )
         return Evidence(self.delta, self.threshold, self.present, self.checked, float(score), rnd, text)
 
@@ -416,14 +430,37 @@ class _Context:
             self.eta = fit.eta
         return fit
 
-    def chi2_background_only(self) -> float:
+    def _solve(self, cols: np.ndarray, fit: RefinementResult | None) -> float:
+        """χ² of the best non-negative combination of ``cols`` plus the background."""
         x = self.scan.two_theta
-        t = 2.0 * (x - x[0]) / (x[-1] - x[0]) - 1.0
-        basis = np.polynomial.chebyshev.chebvander(t, self.degree) / self.scan.sigma[:, None]
-        target = (self.scan.counts - self.background) / self.scan.sigma
-        coef, *_ = np.linalg.lstsq(basis, target, rcond=None)
-        r = target - basis @ coef
+        target = self.scan.counts - self.background
+        w = 1.0 / np.clip(self.scan.sigma, 1e-6, None) ** 2
+        basis = _chebyshev_basis(x, self.degree)
+        s, c = _solve_linear(cols, basis, target, w)
+        r = (target - cols @ s - basis @ c) * np.sqrt(w)
         return float(r @ r)
+
+    def _unit_columns(self, fit: RefinementResult) -> list[np.ndarray]:
+        return [p.profile / p.scale if p.scale > 0 else np.zeros_like(p.profile) for p in fit.phases]
+
+    def gain_with(self, fit: RefinementResult | None, chi2_now: float, ref, start: PhaseStart) -> float:
+        """Δχ²/max(GoF, 1) from adding ``ref`` to ``fit`` with the other phases' profiles fixed."""
+        cols = self._unit_columns(fit) if fit is not None else []
+        shift = fit.phases[0] if fit is not None and fit.phases else start
+        cols.append(phase_profile(
+            ref, self.scan.two_theta, self.scan.radiation, zero_shift=shift.zero_shift,
+            displacement=shift.displacement, d_scale=start.d_scale, caglioti=self.caglioti, eta=self.eta,
+        ))
+        return (chi2_now - self._solve(np.column_stack(cols), fit)) / self.gof_floor(fit)
+
+    def gain_of(self, fit: RefinementResult, p: int) -> float:
+        """Δχ²/max(GoF, 1) that phase p of ``fit`` brings (the others' profiles fixed)."""
+        cols = [c for i, c in enumerate(self._unit_columns(fit)) if i != p]
+        chi2 = self._solve(np.column_stack(cols), fit) if cols else self.chi2_background_only()
+        return (chi2 - fit.chi2) / self.gof_floor(fit)
+
+    def chi2_background_only(self) -> float:
+        return self._solve(np.zeros((len(self.scan), 0)), None)
 
     @staticmethod
     def gof_floor(fit: RefinementResult | None) -> float:
@@ -461,34 +498,55 @@ class _Context:
         """Acceptance test for phase ``p`` of ``fit`` (module docstring)."""
         delta = (chi2_before - fit.chi2) / max(fit.gof, 1.0)
         prof = fit.phases[p].profile
-        present, checked, strongest_missing = _strong_lines_present(fit, p)
+        lc = _check_lines(fit, p)
+        present, checked = lc.present, lc.checked
         if fit.phases[p].scale <= 0 or not np.any(prof / fit.sigma >= 3.0):
             return _Verdict(False, "no line stands 3σ above the noise at the fitted scale", delta, self.threshold, present, checked)
         if delta <= self.threshold:
             return _Verdict(False, f"Δχ²/GoF {delta:.0f} not above {self.threshold:.0f}", delta, self.threshold, present, checked)
-        if strongest_missing or (checked and (checked - present) > checked / 4):
-            what = "its strongest line is missing" if strongest_missing else f"only {present} of {checked} strong lines present"
-            return _Verdict(False, what, delta, self.threshold, present, checked)
-        return _Verdict(True, "", delta, self.threshold, present, checked)
+        reason = _line_objection(lc)
+        if reason:
+            return _Verdict(False, reason, delta, self.threshold, present, checked)
+        return _Verdict(True, "", delta, self.threshold, present, checked, lc.own_present)
 
 
-def _strong_lines_present(fit: RefinementResult, p: int) -> tuple[int, int, bool]:
-    """(present, checked, strongest missing) for the strong lines of phase p of ``fit``.
+def _line_objection(lc: _LineCheck) -> str:
+    """Why the strong-line evidence of a phase is not enough, or ``""``."""
+    if lc.strongest_missing:
+        return "its strongest line is missing"
+    if lc.checked and (lc.checked - lc.present) > lc.checked / 4:
+        return f"only {lc.present} of {lc.checked} strong lines present"
+    if lc.own_present < MIN_OWN_LINES:
+        return (f"only {lc.own_present} of its lines present where it gives most of the calculated "
+                f"intensity (needs {MIN_OWN_LINES})")
+    return ""
+
+
+@dataclass(frozen=True)
+class _LineCheck:
+    present: int  # strong lines whose net observed counts reach LINE_PRESENT_RATIO
+    checked: int  # strong lines examined (≥ 3σ at the fitted scale)
+    strongest_missing: bool
+    own_present: int  # present lines where this phase gives ≥ OWN_LINE_SHARE of the calculated counts
+
+
+def _check_lines(fit: RefinementResult, p: int) -> _LineCheck:
+    """Presence of the strong lines of phase p of ``fit`` (module docstring).
 
     Lines are the local maxima of the phase's calculated profile; each is judged on the
-    counts within ±1 FWHM of its maximum.
+    counts within ±½ FWHM of its maximum.
     """
     prof = fit.phases[p].profile
     x = fit.two_theta
-    others = fit.calculated - prof
-    net = fit.observed - others
+    net_calc = fit.calculated - fit.background
+    net = fit.observed - (fit.calculated - prof)
     interior = (prof[1:-1] > prof[:-2]) & (prof[1:-1] >= prof[2:])
     tops = np.flatnonzero(interior) + 1
     if tops.size == 0:
-        return 0, 0, True
+        return _LineCheck(0, 0, True, 0)
     tops = tops[np.argsort(-prof[tops])]
     step = float(np.median(np.diff(x)))
-    present = checked = 0
+    present = checked = own = 0
     strongest_missing = False
     half_pts = max(1, int(round(0.5 * _typical_fwhm(fit) / step)))
     for rank, i in enumerate(tops[: 3 * STRONG_LINES_CHECKED]):  # bounded: a few lines per phase
@@ -502,9 +560,10 @@ def _strong_lines_present(fit: RefinementResult, p: int) -> tuple[int, int, bool
         checked += 1
         ok = float(net[sl].sum()) >= LINE_PRESENT_RATIO * pred
         present += ok
+        own += ok and pred >= OWN_LINE_SHARE * float(net_calc[sl].sum())
         if rank == 0 and not ok:
             strongest_missing = True
-    return present, checked, strongest_missing
+    return _LineCheck(present, checked, strongest_missing, own)
 
 
 def _typical_fwhm(fit: RefinementResult) -> float:

@@ -17,7 +17,8 @@ from refdb.match.mixture import MixtureResult
 
 #: File types the figure can be written as (by suffix).
 PLOT_FORMATS: tuple[str, ...] = (".png", ".svg", ".pdf")
-_PALETTE = ("#1f77b4", "#d62728", "#2ca02c", "#9467bd", "#ff7f0e", "#8c564b", "#e377c2", "#17becf", "#bcbd22", "#7f7f7f")
+#: Phase colours: the tab10 colours without its red, which marks the calculated pattern.
+_PALETTE = ("#1f77b4", "#2ca02c", "#9467bd", "#ff7f0e", "#8c564b", "#e377c2", "#17becf", "#bcbd22", "#7f7f7f")
 
 
 def _label(p) -> str:
@@ -72,7 +73,7 @@ def mixture_figure(result: MixtureResult, *, title: str | None = None, width_in:
     d = fit.observed - fit.calculated
     diff.plot(x, d, "-", lw=0.7, color="#1f77b4")
     diff.axhline(0.0, color="#999999", lw=0.6)
-    diff.set_ylabel("obs − calc")
+    diff.set_ylabel("obs − calc\n(counts)")
     lim = float(np.percentile(np.abs(d), 99.5)) * 1.3 or 1.0
     diff.set_ylim(-lim, lim)
 

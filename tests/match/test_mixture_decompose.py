@@ -47,7 +47,7 @@ def test_minor_phase_in_binary(library):
     assert abs(minor.weight_fraction - 0.05) < 0.015
     assert minor.evidence.delta_chi2 > minor.evidence.threshold
     assert minor.evidence.lines_present >= 0.75 * minor.evidence.lines_checked
-    assert "strongest lines present" in minor.evidence.text
+    assert "strongest lines present" in minor.evidence.text and "its own" in minor.evidence.text
     assert len(res.unexplained) == 0
     json.dumps(res.as_dict(), allow_nan=False)
 
