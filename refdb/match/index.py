@@ -502,7 +502,7 @@ def _load_strong(directory: Path, key: str) -> StrongLines | None:
     if not all(p.exists() for p in files.values()):
         return None
     try:
-        arrs = {n: np.load(p, mmap_mode="r", allow_pickle=False) for n, p in files.items()}
+        arrs = {n: np.load(p, mmap_mode="r", allow_pickle=False).view(np.ndarray) for n, p in files.items()}
     except (OSError, ValueError):
         return None
     return StrongLines(wavelength=float(key), **arrs)
@@ -540,9 +540,15 @@ def read_index(directory: Path, *, mmap: bool = True) -> SearchIndex:
         }
     except (OSError, ValueError, KeyError, json.JSONDecodeError) as exc:
         raise LibraryError(f"cannot read the search index in {directory.name}: {exc}", "it will be rebuilt") from None
-    # Small per-entry arrays are read into memory; the per-reflection ones stay mapped.
+    # Small per-entry arrays are read into memory; the per-reflection ones stay mapped, seen
+    # as plain ndarray views (numpy's memmap subclass makes every slice cost a Python call).
     for name in ("entry_id", "kind", "wavelength", "line_start", "elements", "sg_number", "tag_entry", "tag_code"):
-        arr[name] = np.asarray(arr[name])
+        arr[name] = np.array(arr[name])
+    for name, value in arr.items():
+        if isinstance(value, np.memmap):
+            arr[name] = value.view(np.ndarray)
+    text = {c: TextColumn(col.blob.view(np.ndarray) if isinstance(col.blob, np.memmap) else col.blob, col.offsets)
+            for c, col in text.items()}
     return SearchIndex(
         stamp=str(manifest["stamp"]),
         tag_names=tuple(manifest.get("tag_names", ())),

@@ -67,9 +67,12 @@ MISSING_PENALTY = 0.6
 #: At most this many strongest lines per candidate inside the range enter the score.
 MAX_LINES = 400
 #: Strongest lines per candidate that vote for the starting zero shift and d-scale.
-GRID_LINES = 25
-#: Step of the d-scale grid of the starting vote (a shift of ≤ 0.06° at 2θ = 60°).
-SCALE_GRID_STEP = 0.001
+GRID_LINES = 15
+#: Step of the d-scale grid of the starting vote: half a step is a shift of ≤ 0.07° at
+#: 2θ = 80°, inside the first, widened Gauss–Newton window.
+SCALE_GRID_STEP = 0.002
+#: Strongest lines per candidate used to fit the geometry.
+FIT_LINES = 60
 
 
 @dataclass(frozen=True, eq=False)
@@ -236,21 +239,28 @@ def score_lines(peaks: PeakList, lines: LineSet, *, d_scale: bool = True,
     z, eps = _hough_start(obs, lines, tol, d_scale=d_scale, d_scale_start=d_scale_start, wavelength=lam)
     s = np.zeros(c_n)
 
-    imax = np.maximum(inten.max(axis=1, initial=0.0), 1e-300)
-    wl = np.sqrt(inten / imax[:, None])
+    # The geometry is fitted on the strongest FIT_LINES lines (lines are strongest first);
+    # weak lines add little information and most of the cost.
+    f = min(FIT_LINES, inten.shape[1])
+    fit = LineSet(lines.rows, lines.d[:, :f], lines.two_theta[:, :f], inten[:, :f], lines.line[:, :f])
+    imax = np.maximum(inten[:, :1].max(axis=1, initial=0.0), 1e-300)
+    wl = np.sqrt(fit.intensity / imax[:, None])
     prior = np.array([PRIOR_ZERO, PRIOR_DISPLACEMENT, PRIOR_D_SCALE if d_scale else 1e-9]) ** -2.0
+    jac = np.empty(fit.d.shape + (3,))
+    jac[..., 0] = 1.0
     for widen in (1.5, 1.0, 1.0):
-        pred = _predict(lines, z, s, eps, lam)
+        pred = _predict(fit, z, s, eps, lam)
         pick, delta, ok = nearest(pred, tol * widen)
         tt0 = pred - z[:, None] - s[:, None] * np.cos(np.radians(pred) / 2.0)
         th = np.radians(np.where(np.isfinite(tt0), tt0, 0.0)) / 2.0
-        jac = np.stack([np.ones_like(th), np.cos(th), -2.0 * np.degrees(np.tan(th)) / (1.0 + eps[:, None])], axis=-1)
+        jac[..., 1] = np.cos(th)
+        jac[..., 2] = -2.0 * np.degrees(np.tan(th)) / (1.0 + eps[:, None])
         wt = np.where(ok, wl / tol[pick] ** 2, 0.0)
-        resid = np.where(ok, delta, 0.0)
-        normal = np.einsum("cl,cli,clj->cij", wt, jac, jac) + np.diag(prior)
+        wj = jac * wt[..., None]
+        normal = np.matmul(wj.transpose(0, 2, 1), jac) + np.diag(prior)
         # Priors pull the *total* parameters to zero: rhs carries −prior·current value.
         cur = np.stack([z, s, eps], axis=1)
-        rhs = np.einsum("cl,cli,cl->ci", wt, jac, resid) - prior * cur
+        rhs = np.matmul(wj.transpose(0, 2, 1), np.where(ok, delta, 0.0)[..., None])[..., 0] - prior * cur
         step_v = np.linalg.solve(normal, rhs[..., None])[..., 0]
         z = np.clip(z + step_v[:, 0], -Z_MAX, Z_MAX)
         s = np.clip(s + step_v[:, 1], -Z_MAX, Z_MAX)
@@ -287,23 +297,18 @@ def _hough_start(obs: np.ndarray, lines: LineSet, tol: np.ndarray, *, d_scale: b
     with np.errstate(invalid="ignore", divide="ignore"):
         x = wavelength / (2.0 * d[:, :, None] * (1.0 + grid_e[None, None, :]))
         tt = np.where(x <= 1.0, 2.0 * np.degrees(np.arcsin(np.clip(x, 0.0, 1.0))), np.nan)  # (C, g, E)
-    hi = np.searchsorted(obs, np.where(np.isfinite(tt), tt, -1.0))
     n = obs.size
-    zs, ok = [], []
-    for off in (-2, -1, 0, 1):
-        j = np.clip(hi + off, 0, n - 1)
-        zz = obs[j] - tt
-        zs.append(zz)
-        ok.append(np.isfinite(zz) & (np.abs(zz) <= Z_MAX + tol[j]) & (hi + off >= 0) & (hi + off < n))
-    zz = np.stack(zs, axis=-1)  # (C, g, E, 4)
-    good = np.stack(ok, axis=-1) & (inten > 0)[:, :, None, None]
-    zbin = np.clip(np.rint(zz / z_step).astype(np.int64) + n_z, 0, 2 * n_z)
+    hi = np.searchsorted(obs, np.where(np.isfinite(tt), tt, -1.0))[..., None] + np.arange(-2, 2)  # (C, g, E, 4)
+    inside = (hi >= 0) & (hi < n)
+    j = np.clip(hi, 0, n - 1)
+    zz = obs[j] - tt[..., None]
+    good = inside & (np.abs(zz) <= Z_MAX + tol[j]) & (inten > 0)[:, :, None, None]
+    good &= np.isfinite(zz)
     n_e, n_b = grid_e.size, 2 * n_z + 1
-    c_idx = np.broadcast_to(np.arange(c_n)[:, None, None, None], zz.shape)
-    e_idx = np.broadcast_to(np.arange(n_e)[None, None, :, None], zz.shape)
-    w = np.broadcast_to(inten[:, :, None, None], zz.shape)
-    flat = (c_idx * n_e + e_idx) * n_b + zbin
-    votes = np.bincount(flat[good], weights=w[good], minlength=c_n * n_e * n_b).reshape(c_n, n_e, n_b)
+    zbin = np.rint(zz[good] / z_step).astype(np.int64) + n_z
+    c_i, k_i, e_i, _ = np.nonzero(good)
+    flat = (c_i * n_e + e_i) * n_b + np.clip(zbin, 0, 2 * n_z)
+    votes = np.bincount(flat, weights=inten[c_i, k_i], minlength=c_n * n_e * n_b).reshape(c_n, n_e, n_b)
     # A vote spread over neighbouring z cells is one shift measured with noise: smooth by 3 cells.
     sm = votes.copy()
     sm[:, :, 1:] += votes[:, :, :-1]
