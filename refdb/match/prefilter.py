@@ -3,18 +3,24 @@
 Two passes over the strong-line table of :mod:`refdb.match.index` (each entry's
 :data:`~refdb.match.index.STRONG_LINES` strongest lines, weights relative to its strongest):
 
-1. **Windows.** Each of the strongest :data:`N_OBSERVED` observed peaks opens a window in ln d
-   of half-width ``tol_j + ln(1 + ε_max)``, where ``tol_j = cot θ_j · (τ_j + SHIFT_ALLOWANCE)/2``
-   (radians) turns the 2θ tolerance τ_j plus an allowance for zero shift and displacement into
-   ln d (from Δd/d = −cot θ·Δθ) and ε_max is the largest d-scale. Overlapping windows are
-   merged so that no strong line is counted twice; every strong line inside a window votes its
-   weight for its entry (``np.searchsorted`` on the sorted ln d, then ``np.bincount``). An
-   entry's pass-1 key is ``U / (D + 1/2)``: U the votes, D the summed weight of its strong lines
-   inside the scanned d range (a candidate with few lines in range is weaker evidence).
+1. **Windows.** The d-scale range ±ln(1 + ε_max) is cut into :data:`SCALE_SLICES` slices of
+   half-width h. For each slice centre c, each of the strongest :data:`N_OBSERVED` observed
+   peaks opens a window in ln d centred on ``ln d_j − c`` of half-width ``tol_j + h``, where
+   ``tol_j = cot θ_j · (τ_j + SHIFT_ALLOWANCE)/2`` (radians) turns the 2θ tolerance τ_j plus
+   an allowance for zero shift and displacement into ln d (from Δd/d = −cot θ·Δθ). Overlapping
+   strong line inside the window of peak j votes ``min(w_k, o_j)`` for its entry (w_k its
+   weight, o_j the peak's intensity relative to the strongest peak, both 0–1), so a strong
+   reference line only earns its weight at a strong observed peak (the idea behind Hanawalt's
+   search by the strongest lines; Hanawalt, Rinn & Frevel 1938, Ind. Eng. Chem. Anal. Ed. 10,
+   457). Found with ``np.searchsorted`` on the sorted ln d and summed with ``np.bincount``. An
+   entry keeps the votes U of its best slice. Its pass-1 key is ``min(U, D) / (D + 1/2)``, D
+   the summed weight of its strong lines inside the scanned d range (a candidate with few lines
+   in range is weaker evidence). A line inside the windows of two peaks votes twice, which
+   the cap at D bounds; merging windows would cost a sort per query.
 2. **Scale-consistent votes** for the best :data:`N_PASS2` entries: every (strong line,
    observed peak) pair within reach marks the d-scales ε on a grid of step :data:`SCALE_STEP`
-   for which the two agree; the best ε of each entry is the one whose matched lines carry the
-   most weight. The pass-2 key is the same ratio with those votes, and the best ε is handed to
+   for which the two agree, with the vote ``min(w_k, o_j)`` (the best peak per line and ε);
+   the best ε of each entry is the one whose matched lines carry the most votes. The pass-2 key is the same ratio with those votes, and the best ε is handed to
    the detailed score as a starting value.
 
 Nothing here decides an identification; it only keeps the work of the detailed score (which
@@ -34,11 +40,15 @@ from refdb.scan.types import PeakList
 #: Observed peaks (strongest first) that open windows.
 N_OBSERVED = 24
 #: Entries passed from the first to the second pass.
-N_PASS2 = 1500
+N_PASS2 = 600
+#: Entries with the most pass-1 votes whose key is computed (the key needs their strong lines).
+PASS1_KEEP = 10 * N_PASS2
 #: Allowance for zero shift plus displacement in the windows, degrees 2θ.
 SHIFT_ALLOWANCE = 0.2
 #: Grid step of the d-scale votes in ln d.
 SCALE_STEP = 0.0025
+#: Slices of the d-scale range in pass 1 (each ±ln(1 + ε_max)/SCALE_SLICES wide).
+SCALE_SLICES = 5
 
 
 @dataclass(frozen=True, eq=False)
@@ -60,8 +70,9 @@ class Shortlist:
     d_scale: np.ndarray
 
 
-def observed_windows(peaks: PeakList, width: WidthModel, *, d_scale: bool) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """ln d of the strongest observed peaks, their ln-d tolerance, and the scale reach.
+def observed_windows(peaks: PeakList, width: WidthModel, *,
+                     d_scale: bool) -> tuple[np.ndarray, np.ndarray, float, np.ndarray]:
+    """ln d of the strongest observed peaks, their ln-d tolerance, the scale reach, strengths.
 
     Returns
     -------
@@ -70,6 +81,8 @@ def observed_windows(peaks: PeakList, width: WidthModel, *, d_scale: bool) -> tu
         Half-width in ln d without the d-scale.
     reach : float
         ln(1 + ε_max), 0 without d-scale.
+    strength : ndarray, shape (J,)
+        Relative intensity of each peak, strongest = 1.
     """
     rel = np.asarray(peaks.relative_intensity, dtype=float)
     order = np.argsort(-rel, kind="stable")[:N_OBSERVED]
@@ -79,22 +92,8 @@ def observed_windows(peaks: PeakList, width: WidthModel, *, d_scale: bool) -> tu
     tol = np.radians(tau) / 2.0 / np.tan(theta)
     log_d = np.log(np.asarray(peaks.d, dtype=float)[order])
     reach = float(np.log1p(D_SCALE_MAX)) if d_scale else 0.0
-    return log_d, tol, reach
-
-
-def _merged_ranges(lo: np.ndarray, hi: np.ndarray, sorted_values: np.ndarray) -> np.ndarray:
-    """Positions in ``sorted_values`` inside the union of intervals [lo_i, hi_i]."""
-    order = np.argsort(lo)
-    lo, hi = lo[order], hi[order]
-    run_hi = np.maximum.accumulate(hi)
-    new = np.ones(lo.size, dtype=bool)
-    new[1:] = lo[1:] > run_hi[:-1]
-    starts = np.flatnonzero(new)
-    m_lo = lo[starts]
-    m_hi = run_hi[np.append(starts[1:] - 1, lo.size - 1)]
-    a = np.searchsorted(sorted_values, m_lo.astype(sorted_values.dtype), side="left")
-    b = np.searchsorted(sorted_values, m_hi.astype(sorted_values.dtype), side="right")
-    return expand_ranges(a, b - a)[0]
+    top = float(rel[order[0]]) if order.size and rel[order[0]] > 0 else 1.0
+    return log_d, tol, reach, np.clip(rel[order] / top, 0.0, 1.0)
 
 
 def first_pass(peaks: PeakList, index: SearchIndex, allowed: np.ndarray, *, d_scale: bool, width: WidthModel,
@@ -104,19 +103,31 @@ def first_pass(peaks: PeakList, index: SearchIndex, allowed: np.ndarray, *, d_sc
     Returns
     -------
     rows : ndarray, shape (h,), int64
-        Entries with votes, increasing.
+        Entries with votes (at most :data:`PASS1_KEEP`, those with the most), increasing.
     key : ndarray, shape (h,)
         ``min(U, D) / (D + 1/2)``.
     """
     table = index.strong_lines(peaks.radiation.wavelength)
-    log_d, tol, reach = observed_windows(peaks, width, d_scale=d_scale)
-    pos = _merged_ranges(log_d - tol - reach, log_d + tol + reach, table.sorted_log_d)
-    slot = np.asarray(table.sorted_slot[pos], dtype=np.int64)
-    entry = slot // table.k
-    w = np.asarray(table.weight.reshape(-1)[slot], dtype=np.float64)
-    votes = np.bincount(entry, weights=w, minlength=index.n_entries)
+    log_d, tol, reach, strength = observed_windows(peaks, width, d_scale=d_scale)
+    flat_w = np.asarray(table.weight).reshape(-1)
+    votes = np.zeros(index.n_entries)
+    # The d-scale range is cut into slices; an entry's votes are those of its best slice, so
+    # its lines must agree with one common scale (to within a slice) to collect them.
+    n_slices = SCALE_SLICES if reach > 0 else 1
+    half = reach / n_slices
+    sorted_ld = table.sorted_log_d
+    for centre in np.linspace(-reach + half, reach - half, n_slices):
+        a = np.searchsorted(sorted_ld, (log_d - centre - tol - half).astype(sorted_ld.dtype), side="left")
+        b = np.searchsorted(sorted_ld, (log_d - centre + tol + half).astype(sorted_ld.dtype), side="right")
+        pos, peak = expand_ranges(a, b - a)
+        slot = np.asarray(table.sorted_slot[pos], dtype=np.int64)
+        vote = np.minimum(flat_w[slot], strength[peak])
+        np.maximum(votes, np.bincount(slot // table.k, weights=vote, minlength=index.n_entries), out=votes)
     votes[~allowed] = 0.0
     hit = np.flatnonzero(votes > 0)
+    if hit.size > PASS1_KEEP:
+        # The key is at most U/(U + 1/2): only entries with the most votes can lead.
+        hit = np.sort(hit[np.argpartition(-votes[hit], PASS1_KEEP - 1)[:PASS1_KEEP]])
     lo_d, hi_d = np.log(d_range[0]) - reach, np.log(d_range[1]) + reach
     ld = np.asarray(table.log_d[hit], dtype=np.float64)
     wt = np.asarray(table.weight[hit], dtype=np.float64)
@@ -171,7 +182,7 @@ def scale_votes(peaks: PeakList, index: SearchIndex, rows: np.ndarray, *, width:
         Best ε (0 without d-scale).
     """
     table = index.strong_lines(peaks.radiation.wavelength)
-    log_d, tol, reach = observed_windows(peaks, width, d_scale=d_scale)
+    log_d, tol, reach, strength = observed_windows(peaks, width, d_scale=d_scale)
     rows = np.asarray(rows, dtype=np.int64)
     k = table.k
     ld2 = np.asarray(table.log_d[rows], dtype=np.float64)
@@ -196,9 +207,12 @@ def scale_votes(peaks: PeakList, index: SearchIndex, rows: np.ndarray, *, width:
         i0 = i1 = np.zeros(rr.size, dtype=np.int64)
     s_idx, pair = expand_ranges(i0, i1 - i0 + 1)
     cell = (c_i * k + k_i)[pair]
-    marks = np.zeros((rows.size * k, grid.size), dtype=bool)
-    marks[cell, s_idx] = True
-    per_scale = np.einsum("cks,ck->cs", marks.reshape(rows.size, k, grid.size), wt2)
+    vote = np.minimum(wt2[c_i, k_i], strength[j_i])[pair]
+    # Each (line, scale) keeps its best peak: assign in increasing order, the last write wins.
+    order = np.argsort(vote, kind="stable")
+    marks = np.zeros((rows.size * k, grid.size))
+    marks[cell[order], s_idx[order]] = vote[order]
+    per_scale = marks.reshape(rows.size, k, grid.size).sum(axis=1)
     # Prefer the smallest |ε| among equal votes.
     best = np.argmax(per_scale - 1e-9 * np.abs(grid)[None, :], axis=1)
     votes = per_scale[np.arange(rows.size), best]

@@ -42,8 +42,8 @@ PROFILE_CHECKED = 15
 #: Weight λ of the profile correlation in the final score.
 PROFILE_WEIGHT = 0.3
 #: Shortlist size for the detailed score: max(SHORTLIST_MIN, SHORTLIST_PER_TOP × top).
-SHORTLIST_MIN = 200
-SHORTLIST_PER_TOP = 4
+SHORTLIST_MIN = 100
+SHORTLIST_PER_TOP = 2
 
 
 @dataclass(frozen=True)

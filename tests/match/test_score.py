@@ -123,24 +123,32 @@ def test_width_model_recovers_caglioti_like_widths():
 
 
 def slow_first_pass(peaks, allowed, d_scale):
+    from refdb.match.prefilter import SCALE_SLICES
+
     width = width_model(peaks)
-    log_d, tol, reach = observed_windows(peaks, width, d_scale=d_scale)
+    log_d, tol, reach, strength = observed_windows(peaks, width, d_scale=d_scale)
     table = INDEX.strong_lines(LAMBDA)
     d_lo, d_hi = _d_range(peaks)
+    n = SCALE_SLICES if d_scale else 1
+    half = reach / n
+    centres = [-reach + half + 2 * half * i for i in range(n)]
     keys = {}
     for row in range(INDEX.n_entries):
         if not allowed[row]:
             continue
-        u = den = 0.0
+        den = 0.0
+        u = [0.0] * n
         for ld, w in zip(table.log_d[row], table.weight[row]):
             if not np.isfinite(ld):
                 continue
             if np.log(d_lo) - reach <= ld <= np.log(d_hi) + reach:
                 den += w
-            if any(abs(ld - x) <= t + reach for x, t in zip(log_d, tol)):
-                u += w
-        if u > 0:
-            keys[row] = min(u, den) / (den + 0.5)
+            for i, c in enumerate(centres):
+                for x, t, o in zip(log_d, tol, strength):
+                    if abs(ld - (x - c)) <= t + half:
+                        u[i] += min(w, o)
+        if max(u) > 0:
+            keys[row] = min(max(u), den) / (den + 0.5)
     return keys
 
 
@@ -162,7 +170,7 @@ def test_scale_votes_agree_with_slow_grid():
     width = width_model(peaks)
     rows = np.array([ROW, 3, 4])
     key, eps = scale_votes(peaks, INDEX, rows, width=width, d_scale=True, d_range=_d_range(peaks))
-    log_d, tol, reach = observed_windows(peaks, width, d_scale=True)
+    log_d, tol, reach, strength = observed_windows(peaks, width, d_scale=True)
     table = INDEX.strong_lines(LAMBDA)
     d_lo, d_hi = _d_range(peaks)
     grid = np.arange(-reach, reach + SCALE_STEP / 2, SCALE_STEP)
@@ -171,8 +179,11 @@ def test_scale_votes_agree_with_slow_grid():
         ld, wt = table.log_d[row], table.weight[row]
         inr = (ld >= np.log(d_lo) - reach) & (ld <= np.log(d_hi) + reach)
         for s in grid:
-            v = sum(w for l, w, ok in zip(ld, wt, inr)
-                    if ok and np.any(np.abs(log_d - l - s) <= tol + 1e-12))
+            v = 0.0
+            for l, w, ok in zip(ld, wt, inr):
+                near = np.abs(log_d - l - s) <= tol + 1e-12
+                if ok and near.any():
+                    v += min(w, strength[near].max())
             best = max(best, v)
         den = wt[inr].sum()
         # The fast version also counts a pair whose interval falls between grid points at the
