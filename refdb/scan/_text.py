@@ -70,7 +70,7 @@ def decode(data: bytes, name: str) -> str:
     if b"\0" in head or controls > len(head) // 100 + 2:
         raise InputError(
             f"{name} looks like a binary file",
-            "export the scan as text columns (2θ counts), CSV or powder CIF",
+            "export the scan as text columns of 2θ and counts, CSV or powder CIF",
         )
     try:
         return data.decode("utf-8-sig")
@@ -137,7 +137,7 @@ def choose_radiation(
         return given
     raise InputError(
         f"{name} does not say which radiation was used",
-        "give it with --anode Cu or --wavelength 1.5406 (Å), or add a line '# anode: Cu' to the file",
+        "give it with --anode Cu or --wavelength 1.5406 in Å, or add a line '# anode: Cu' to the file",
     )
 
 

@@ -27,7 +27,6 @@ from collections.abc import Callable
 
 import numpy as np
 from scipy.signal import find_peaks as _local_maxima
-from scipy.signal import peak_widths
 
 from refdb.errors import InputError
 from refdb.scan.types import Scan
@@ -39,18 +38,24 @@ _FALLBACK_FWHM_POINTS = 5.0
 def typical_fwhm(scan: Scan) -> float:
     """Median FWHM (degrees 2θ) of the clearly visible peaks of a scan.
 
-    Local maxima whose prominence exceeds 8√(median counts) are measured at half their
-    prominence (scipy.signal.peak_widths); the median width in points times the median step is
-    returned. A scan without such peaks gets 5 steps.
+    Local maxima standing more than 8√counts above their surroundings (prominence within
+    ±2 times the widest width allowed) and narrower
+    than 3° or a tenth of the scanned range (broader humps are background: amorphous
+    scattering, air scatter) are measured at half their prominence
+    (scipy.signal.peak_widths); the median width of the 30 most prominent, in points, times the
+    median step is returned. A scan without such peaks gets 5 steps.
     """
     y = scan.counts
     step = float(np.median(np.diff(scan.two_theta)))
-    noise = 8.0 * np.sqrt(max(float(np.median(y)), 1.0))
-    idx, props = _local_maxima(y, prominence=noise)
-    if idx.size == 0:
+    widest = min(3.0, 0.1 * float(scan.two_theta[-1] - scan.two_theta[0])) / step
+    # Prominence is measured within ±2 widest widths, so that slow humps do not count.
+    window = int(4 * widest) | 1
+    idx, props = _local_maxima(y, prominence=4.0, width=(None, widest), rel_height=0.5, wlen=window)
+    strong = props["prominences"] > 8.0 * np.sqrt(np.maximum(y[idx], 1.0))
+    if not strong.any():
         return _FALLBACK_FWHM_POINTS * step
-    strongest = idx[np.argsort(props["prominences"])[-min(idx.size, 30):]]
-    widths = peak_widths(y, strongest, rel_height=0.5)[0]
+    order = np.argsort(props["prominences"][strong])[-30:]
+    widths = props["widths"][strong][order]
     return float(max(np.median(widths), 2.0) * step)
 
 
@@ -69,14 +74,15 @@ def _snip(scan: Scan, fwhm: float | None, options: dict) -> np.ndarray:
     hw = _half_window(scan, fwhm, 3.0)
     opts = {"max_half_window": hw, "decreasing": True, "smooth_half_window": max(1, hw // 6)}
     opts.update(options)
-    return _lift(scan, Baseline(x_data=scan.two_theta).snip(scan.counts, **opts)[0])
+    return Baseline(x_data=scan.two_theta).snip(scan.counts, **opts)[0]
 
 
 def _lift(scan: Scan, bkg: np.ndarray) -> np.ndarray:
-    """Raise a clipping background by its noise bias.
+    """Raise a background estimate by its noise bias.
 
-    Clipping filters follow the low side of the noise and so sit below the mean background:
-    about 0.44 σ for SNIP on Poisson noise (measured here over 20–2,000 counts). The bias is
+    Clipping filters and asymmetric fits follow the low side of the noise and so sit below the
+    mean background: about 0.44 σ for SNIP on Poisson noise (measured here over 20–2,000
+    counts), more for asls with its default asymmetry. The bias is
     proportional to the local σ, so it is removed as ``k·σ`` with k the median of (counts −
     background)/σ over the points less than 2σ above the background (which leaves peaks out).
     """
@@ -101,7 +107,7 @@ def _rolling_ball(scan: Scan, fwhm: float | None, options: dict) -> np.ndarray:
     hw = _half_window(scan, fwhm, 3.0)
     opts = {"half_window": hw, "smooth_half_window": max(1, hw // 3)}
     opts.update(options)
-    return _lift(scan, Baseline(x_data=scan.two_theta).rolling_ball(scan.counts, **opts)[0])
+    return Baseline(x_data=scan.two_theta).rolling_ball(scan.counts, **opts)[0]
 
 
 def _modpoly(scan: Scan, fwhm: float | None, options: dict) -> np.ndarray:
@@ -157,7 +163,8 @@ def estimate_background(
     Returns
     -------
     ndarray, shape (n,)
-        Background counts at each point, clipped at zero.
+        Background counts at each point, raised by the estimate's noise bias (see
+        :func:`_lift`) and clipped at zero.
 
     Raises
     ------
@@ -169,4 +176,4 @@ def estimate_background(
         bkg = BACKGROUND_METHODS[key](scan, fwhm, dict(options))
     except TypeError as exc:
         raise InputError(f"background method {key}: {' '.join(str(exc).split())}") from None
-    return np.clip(np.asarray(bkg, dtype=float), 0.0, None)
+    return np.clip(_lift(scan, np.asarray(bkg, dtype=float)), 0.0, None)

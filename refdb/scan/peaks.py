@@ -17,6 +17,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -33,7 +34,9 @@ from refdb.scan.types import PeakList, Scan
 #: Lines within this relative wavelength of Kα1 are fitted with it (the Kα doublet; Kβ is not).
 _DOUBLET_SPREAD = 0.02
 #: Refits of a group after removing insignificant peaks.
-_MAX_REFITS = 3
+_MAX_REFITS = 4
+#: Most peaks fitted together in one group (see :func:`_split_large`).
+MAX_GROUP = 8
 
 
 @dataclass(frozen=True, eq=False)
@@ -122,7 +125,23 @@ def _groups(centers: np.ndarray, fwhm: float, setup: FitSetup) -> list[np.ndarra
     ends = np.nanmax(lines, axis=1) + 4.0 * fwhm
     reach = np.maximum.accumulate(ends)
     breaks = np.flatnonzero(starts[1:] > reach[:-1]) + 1
-    return np.split(np.arange(centers.size), breaks)
+    groups: list[np.ndarray] = []
+    for members in np.split(np.arange(centers.size), breaks):
+        groups.extend(_split_large(members, centers))
+    return groups
+
+
+def _split_large(members: np.ndarray, centers: np.ndarray) -> list[np.ndarray]:
+    """Split a group of more than :data:`MAX_GROUP` peaks at its widest gaps.
+
+    Long chains of overlapping peaks would make one large least-squares problem whose cost
+    grows with the cube of its size; the peaks at a wide gap hardly interact.
+    """
+    if members.size <= MAX_GROUP:
+        return [members]
+    gaps = np.diff(centers[members])
+    cut = int(np.argmax(gaps[MAX_GROUP // 2 - 1 : members.size - MAX_GROUP // 2])) + MAX_GROUP // 2
+    return _split_large(members[:cut], centers) + _split_large(members[cut:], centers)
 
 
 def _collapsed(res: GroupResult, fwhm: float) -> np.ndarray:
@@ -134,21 +153,40 @@ def _collapsed(res: GroupResult, fwhm: float) -> np.ndarray:
 
 def _fit_until_significant(center: np.ndarray, height: np.ndarray, fwhm: float, setup: FitSetup,
                            min_significance: float) -> tuple[GroupResult | None, int]:
-    """Fit a group, drop insignificant peaks and refit; None when nothing survives."""
+    """Fit a group, drop insignificant peaks and refit; None when nothing survives.
+
+    Peaks that merged onto a neighbour go first. Otherwise all insignificant peaks go, except
+    that the most significant one stays for another fit when every peak fell short: a noise
+    bump on a real peak's flank can make both look uncertain until the bump is removed.
+    """
     widths = np.full(center.size, fwhm)
     dropped = 0
     for _ in range(_MAX_REFITS + 1):
         res = fit_group(center, height, widths, setup)
         with np.errstate(divide="ignore", invalid="ignore"):
             sig = np.where(res.u_height > 0, res.height / res.u_height, 0.0)
-        keep = (sig >= min_significance) & ~_collapsed(res, fwhm)
-        if keep.all():
-            return res, dropped
+        merged = _collapsed(res, fwhm)
+        if merged.any():
+            keep = ~merged
+        else:
+            keep = sig >= min_significance
+            if keep.all():
+                return res, dropped
+            if center.size == 1:
+                return None, dropped + 1
+            if not keep.any():
+                keep[np.argmax(sig)] = True
         dropped += int((~keep).sum())
-        if not keep.any():
-            return None, dropped
         center, height, widths = res.center[keep], res.height[keep], np.clip(res.fwhm[keep], 0.5 * fwhm, 2 * fwhm)
-    return res, dropped
+    # Out of refits (rare): keep what is significant in the last fit.
+    res = fit_group(center, height, widths, setup)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        good = res.height >= min_significance * res.u_height
+    if not good.any():
+        return None, dropped + center.size
+    fields = {f: getattr(res, f)[good] for f in ("center", "area", "height", "fwhm", "eta", "u_center", "u_area",
+                                               "u_height", "u_fwhm")}
+    return dataclasses.replace(res, **fields), dropped + int((~good).sum())
 
 
 def find_peaks(

@@ -82,7 +82,7 @@ def make_scan(
         i = int(np.argmax(outside))
         raise InputError(
             f"{source} line {lines[i]}: 2θ = {tt[i]:g}° is outside (0°, 180°)",
-            "the first column must be 2θ in degrees (convert d-spacings, Q or radians first)",
+            "the first column must be 2θ in degrees; convert d-spacings, Q or radians first",
         )
     order = np.argsort(tt, kind="stable")
     if np.any(np.diff(order) != 1):
@@ -131,5 +131,5 @@ def _refuse_peak_list(first: np.ndarray, second: np.ndarray, source: str) -> Non
         kind = "d-spacings" if d_like else "peak positions"
         raise InputError(
             f"{source} looks like a peak list ({kind} with relative intensities), not a scan",
-            "use --peak-table (refdb.scan.load_peak_table) to read it",
+            "read it with --peak-table, or load_peak_table in Python",
         )
