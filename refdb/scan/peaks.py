@@ -108,11 +108,22 @@ def detect(scan: Scan, background: np.ndarray, *, fwhm: float, min_significance:
     if ratios.size > 1 and idx.size > 1:
         second = line_centers(tt, ratios)[0][:, 1]
         tol = max(0.5 * fwhm, 1.5 * step)
-        # j is the Kα2 line of i when it sits at i's Kα2 position and is clearly weaker.
+        # j is the Kα2 line of i when it sits at i's Kα2 position and is clearly weaker. Only a
+        # kept candidate may claim one: strongest first, so a Kα2 maximum never hides a real
+        # reflection that happens to lie at its own Kα2 position.
         shadow = (np.abs(tt[None, :] - second[:, None]) < tol) & (height[None, :] < 0.85 * height[:, None])
-        keep = ~shadow.any(axis=0)
+        removed = np.zeros(tt.size, dtype=bool)
+        for i in np.argsort(-height, kind="stable"):
+            if not removed[i]:
+                removed |= shadow[i]
+        tt, height = tt[~removed], height[~removed]
+    # Two maxima closer than half a FWHM cannot be two resolved reflections: keep the higher.
+    if tt.size > 1:
+        close = np.abs(tt[:, None] - tt[None, :]) < 0.5 * fwhm
+        lower = height[:, None] < height[None, :]
+        keep = ~(close & lower).any(axis=1)
         tt, height = tt[keep], height[keep]
-    facts = {"smoothing_window": window, "candidates": n_found, "alpha2_candidates_dropped": n_found - int(tt.size)}
+    facts = {"smoothing_window": window, "candidates": n_found, "candidates_fitted": int(tt.size)}
     return tt, height, facts
 
 
