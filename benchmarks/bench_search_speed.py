@@ -13,7 +13,8 @@ Measured, per size:
 * warm search: median over the queries of :func:`refdb.match.search.search` for the leading 50
   candidates, peak list only (no profile check), after one warm-up query;
 * cold run: a fresh Python process that imports refdb, loads the cached index
-  (:func:`refdb.match.index.read_index`, memory-mapped) and runs one search — its wall time and
+  (:func:`refdb.match.index.read_index`, memory-mapped), builds the query (which imports
+  refdb.scan for PeakList) and runs one search — its wall time, the time of each part, and
   peak resident memory (``ru_maxrss``);
 * how often the source entry of a query is ranked first (a sanity check, not accuracy).
 
@@ -138,13 +139,18 @@ t0 = time.perf_counter()
 import numpy as np
 from refdb.match.index import read_index
 from refdb.match.search import search
+t_import = time.perf_counter()
 sys.path.insert(0, {bench_dir!r})
 from bench_search_speed import query_peaks
 index = read_index({path!r})
-peaks = query_peaks(index, {row}, np.random.default_rng(1))
+t_load = time.perf_counter()
+peaks = query_peaks(index, {row}, np.random.default_rng(1))  # imports refdb.scan (PeakList)
+t_peaks = time.perf_counter()
 res = search(peaks, index, top=50, profile_check=False)
 t1 = time.perf_counter()
-print(json.dumps({{"seconds": t1 - t0, "maxrss_kb": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss,
+print(json.dumps({{"seconds": t1 - t0, "import_s": t_import - t0, "load_s": t_load - t_import,
+                  "peaks_s": t_peaks - t_load, "search_s": t1 - t_peaks,
+                  "maxrss_kb": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss,
                   "top": res.candidates[0].entry_id if res.candidates else None}}))
 """
 
@@ -179,6 +185,7 @@ def measure(n: int, seed: int, queries: int, folder: Path) -> dict:
         "top1_source": hits / queries,
         "cold_wall_s": cold_wall,
         "cold_inside_s": cold.get("seconds"),
+        "cold_parts": {k: cold.get(k) for k in ("import_s", "load_s", "peaks_s", "search_s")},
         "cold_peak_rss_mb": cold.get("maxrss_kb", 0) / 1024 if "maxrss_kb" in cold else None,
         "cold_error": cold.get("error"),
     }
@@ -202,6 +209,10 @@ def main(argv: list[str] | None = None) -> int:
               f"{r['warm_median_ms']:.1f} ms (p90 {r['warm_p90_ms']:.1f}) | cold {r['cold_wall_s']:.2f} s "
               f"| peak RSS {r['cold_peak_rss_mb'] or float('nan'):.0f} MB | source ranked first "
               f"{100 * r['top1_source']:.0f} %", flush=True)
+        parts = r["cold_parts"]
+        if parts.get("search_s") is not None:
+            print("  cold parts: " + ", ".join(f"{k[:-2]} {v:.2f} s" for k, v in parts.items())
+                  + "  (peaks: building the query imports refdb.scan)")
         if r["cold_error"]:
             print("  cold run failed:", r["cold_error"], file=sys.stderr)
     if len(rows) > 1:

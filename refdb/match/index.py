@@ -27,8 +27,8 @@ For the coarse prefilter of :mod:`refdb.match.search` every entry keeps its
 computed entries; for measured ones the observed intensity with the reference's own
 Lorentz–polarisation factor replaced by that of the query wavelength), restricted to
 2θ ≤ :data:`STRONG_MAX_TWO_THETA`. The table holds, per entry, the lines' ln d and their
-intensities relative to the entry's strongest line, and a copy of all ln d sorted over the
-whole library for ``np.searchsorted``. Tables are built lazily per wavelength (rounded to
+intensities relative to the entry's strongest line, and a copy of the ln d of those with at
+least :data:`SORTED_MIN_WEIGHT` of it, sorted over the whole library for ``np.searchsorted``. Tables are built lazily per wavelength (rounded to
 1e-4 Å), kept in memory and written beside the index when it has a directory.
 """
 
@@ -55,6 +55,11 @@ STRONG_LINES = 10
 #: Strong lines are chosen among lines below this angle (degrees 2θ, primary wavelength);
 #: few scans reach further and high-angle lines are weak in Bragg–Brentano geometry.
 STRONG_MAX_TWO_THETA = 120.0
+#: Only strong lines at least this strong (relative to the entry's strongest) are in the
+#: sorted table the prefilter's first pass reads; weaker ones cannot earn much there.
+SORTED_MIN_WEIGHT = 0.2
+#: Version of the strong-table files (part of their names; older ones are rebuilt).
+_STRONG_LAYOUT = 2
 #: Entries processed at once while building strong tables (bounds the temporary memory).
 _CHUNK_LINES = 4_000_000
 
@@ -166,7 +171,7 @@ class StrongLines:
     weight : ndarray, shape (E, K), float32
         Intensity relative to the entry's strongest line (0–1); 0 on padding.
     sorted_log_d : ndarray, shape (M,), float32
-        All finite ``log_d`` values in increasing order.
+        The ``log_d`` values of lines with weight ≥ :data:`SORTED_MIN_WEIGHT`, increasing.
     sorted_slot : ndarray, shape (M,), int32
         Flat position (row·K + k) in ``log_d`` of each sorted value.
     """
@@ -471,7 +476,7 @@ def _build_strong(index: SearchIndex, wavelength: float) -> StrongLines:
         weight[srows[keep], rank[keep]] = rel[sel]
         row0 = row1
     flat = log_d.ravel()
-    slots = np.flatnonzero(np.isfinite(flat)).astype(np.int32)
+    slots = np.flatnonzero(np.isfinite(flat) & (weight.ravel() >= SORTED_MIN_WEIGHT)).astype(np.int32)
     order = np.argsort(flat[slots], kind="stable")
     return StrongLines(
         wavelength=wavelength,
@@ -483,7 +488,8 @@ def _build_strong(index: SearchIndex, wavelength: float) -> StrongLines:
 
 
 def _strong_files(directory: Path, key: str) -> dict[str, Path]:
-    return {n: directory / f"strong_{key}_{n}.npy" for n in ("log_d", "weight", "sorted_log_d", "sorted_slot")}
+    return {n: directory / f"strong{_STRONG_LAYOUT}_{key}_{n}.npy"
+            for n in ("log_d", "weight", "sorted_log_d", "sorted_slot")}
 
 
 def _save_strong(directory: Path, key: str, table: StrongLines) -> None:

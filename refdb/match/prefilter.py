@@ -30,15 +30,18 @@ sees every line of an entry) proportional to a shortlist instead of to the libra
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from refdb.match.index import SearchIndex, expand_ranges
 from refdb.match.score import D_SCALE_MAX, WidthModel, TOL_FWHM, TOL_MIN
-from refdb.scan.types import PeakList
+
+if TYPE_CHECKING:
+    from refdb.scan.types import PeakList
 
 #: Observed peaks (strongest first) that open windows.
-N_OBSERVED = 24
+N_OBSERVED = 20
 #: Entries passed from the first to the second pass.
 N_PASS2 = 600
 #: Entries with the most pass-1 votes whose key is computed (the key needs their strong lines).

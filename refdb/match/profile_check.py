@@ -17,13 +17,16 @@ scale. Each line is only evaluated within ±:data:`HALF_WINDOW_FWHM` widths of i
 
 from __future__ import annotations
 
+from typing import TYPE_CHECKING
+
 import numpy as np
-from scipy.ndimage import minimum_filter1d, uniform_filter1d
 
 from refdb.match.index import expand_ranges
 from refdb.match.score import LineSet, LineScores, WidthModel
 from refdb.profiles import pseudo_voigt
-from refdb.scan.types import PeakList, Scan
+
+if TYPE_CHECKING:
+    from refdb.scan.types import PeakList, Scan
 
 HALF_WINDOW_FWHM = 8.0
 
@@ -38,6 +41,8 @@ def rough_background(scan: Scan, *, window_deg: float = 3.0) -> np.ndarray:
     -------
     ndarray, shape (n,), counts
     """
+    from scipy.ndimage import minimum_filter1d, uniform_filter1d
+
     tt = np.asarray(scan.two_theta, dtype=float)
     y = np.asarray(scan.counts, dtype=float)
     if tt.size < 3:

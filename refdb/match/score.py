@@ -45,11 +45,14 @@ J. Appl. Cryst. 12, 60) is reported alongside but does not enter the score.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from refdb.match.index import expand_ranges
-from refdb.scan.types import PeakList
+
+if TYPE_CHECKING:
+    from refdb.scan.types import PeakList
 
 #: Matching tolerance as a fraction of the fitted FWHM (common practice, no source: half
 #: a width or a bit more separates resolved peaks and absorbs peak-position noise).

@@ -24,7 +24,8 @@ ranking can be checked by hand.
 from __future__ import annotations
 
 from collections.abc import Iterable, Sequence
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, field
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -35,7 +36,9 @@ from refdb.match.profile_check import profile_correlation, rough_background
 from refdb.match.score import D_SCALE_MAX, LineScores, WidthModel, gather_lines, score_lines, width_model
 from refdb.radiation import Radiation
 from refdb.records import KINDS
-from refdb.scan.types import PeakList, Scan
+
+if TYPE_CHECKING:  # refdb.scan pulls in scipy.signal; the search does not need it to run
+    from refdb.scan.types import PeakList, Scan
 
 #: Candidates given the profile check (when a scan is given).
 PROFILE_CHECKED = 15
@@ -330,11 +333,12 @@ def _subset(lines, sc: LineScores, sel: np.ndarray):
 
 
 def _make_candidate(index: SearchIndex, row: int, i: int, lines, sc: LineScores, final: float,
-                    corr: float | None) -> Candidate:
+                    corr: float | None, equivalents: tuple[int, ...] = ()) -> Candidate:
     valid = lines.line[i] >= 0
     m = sc.matched[i]
-    pairs = np.column_stack([sc.nearest[i][m], lines.line[i][m]]).astype(np.int64)
-    pairs = pairs[np.lexsort((pairs[:, 1], pairs[:, 0]))] if pairs.size else pairs.reshape(0, 2)
+    obs_i, line_i = sc.nearest[i][m], lines.line[i][m]
+    order = np.lexsort((line_i, obs_i))
+    pairs = np.stack([obs_i[order], line_i[order]], axis=1).astype(np.int64)
     inten = lines.intensity[i][valid]
     top = float(inten.max()) if inten.size else 1.0
     comp = Components(
@@ -368,6 +372,7 @@ def _make_candidate(index: SearchIndex, row: int, i: int, lines, sc: LineScores,
         predicted_two_theta=sc.predicted[i][valid],
         line_index=lines.line[i][valid],
         line_intensity=inten * (100.0 / top) if top > 0 else inten,
+        equivalents=equivalents,
     )
 
 
@@ -487,8 +492,9 @@ def search(peaks: PeakList, index: SearchIndex, *, scan: Scan | None = None, bac
         pos_of = {int(r): i for i, r in enumerate(short.rows)}
         for row, eq in group_rows(index, short.rows[order], top):
             i = pos_of[row]
-            cand = _make_candidate(index, row, i, lines, sc, float(final[i]), corr[i] if np.isfinite(corr[i]) else None)
-            ranked.append(replace(cand, equivalents=tuple(int(index.entry_id[r]) for r in eq)))
+            ranked.append(_make_candidate(index, row, i, lines, sc, float(final[i]),
+                                          corr[i] if np.isfinite(corr[i]) else None,
+                                          tuple(int(index.entry_id[r]) for r in eq)))
     if len(peaks) < 3:
         notes.append("fewer than 3 peaks: identifications rest on very little evidence")
     return SearchResult(

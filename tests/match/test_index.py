@@ -16,6 +16,7 @@ import pytest
 from refdb.errors import LibraryError
 from refdb.match.index import (
     STRONG_LINES,
+    SORTED_MIN_WEIGHT,
     STRONG_MAX_TWO_THETA,
     build_index,
     element_mask,
@@ -148,6 +149,8 @@ def test_strong_table_matches_slow_per_entry_computation(lam):
         np.testing.assert_allclose(np.sort(table.weight[row][: d.size]), np.sort(w), rtol=1e-4)
     flat = table.log_d.reshape(-1)
     np.testing.assert_array_equal(flat[table.sorted_slot], table.sorted_log_d)
+    strong_enough = np.isfinite(flat) & (table.weight.reshape(-1) >= SORTED_MIN_WEIGHT)
+    assert np.array_equal(np.sort(table.sorted_slot), np.flatnonzero(strong_enough))
     assert np.all(np.diff(table.sorted_log_d) >= 0)
 
 
@@ -155,7 +158,7 @@ def test_strong_tables_are_cached_per_wavelength(tmp_path):
     lib = FakeLibrary(synthetic_arrays(12, seed=9), tmp_path)
     idx = load_index(lib)
     idx.strong_lines(0.70931713)
-    assert (tmp_path / "search-index-v1" / "strong_0.7093_log_d.npy").exists()
+    assert list((tmp_path / "search-index-v1").glob("strong*_0.7093_log_d.npy"))
     again = load_index(lib)
     np.testing.assert_array_equal(np.asarray(again.strong_lines(0.70931713).log_d),
                                   np.asarray(idx.strong_lines(0.70931713).log_d))

@@ -123,6 +123,7 @@ def test_width_model_recovers_caglioti_like_widths():
 
 
 def slow_first_pass(peaks, allowed, d_scale):
+    from refdb.match.index import SORTED_MIN_WEIGHT
     from refdb.match.prefilter import SCALE_SLICES
 
     width = width_model(peaks)
@@ -143,6 +144,8 @@ def slow_first_pass(peaks, allowed, d_scale):
                 continue
             if np.log(d_lo) - reach <= ld <= np.log(d_hi) + reach:
                 den += w
+            if w < SORTED_MIN_WEIGHT:
+                continue  # only lines at least this strong vote in pass 1
             for i, c in enumerate(centres):
                 for x, t, o in zip(log_d, tol, strength):
                     if abs(ld - (x - c)) <= t + half:
@@ -201,3 +204,33 @@ def test_line_set_is_strongest_first_and_inside_the_range():
         d = lines.d[i][lines.line[i] >= 0]
         assert np.all((d >= 1.2) & (d <= 6.0))
     assert lines.d.shape[1] <= 15
+
+
+# -- invariants (property tests) -----------------------------------------------------------
+
+from hypothesis import given, settings  # noqa: E402
+from hypothesis import strategies as st  # noqa: E402
+
+
+@settings(max_examples=25, deadline=None)
+@given(factor=st.floats(0.01, 1e4), row=st.integers(0, 299))
+def test_scores_do_not_depend_on_the_intensity_unit(factor, row):
+    """Counts or counts·degrees, ×0.01 or ×10⁴: only relative intensities may matter."""
+    peaks = entry_peaks(ARRAYS, row, jitter=0.005, seed=row)
+    scaled = make_peaks(peaks.two_theta, peaks.area * factor)
+    a = score_entries(peaks, INDEX, [int(ARRAYS.entry_id[row]), ENTRY])
+    b = score_entries(scaled, INDEX, [int(ARRAYS.entry_id[row]), ENTRY])
+    # Relative intensities are recomputed from the scaled areas: equal to rounding.
+    np.testing.assert_allclose([c.score for c in a], [c.score for c in b], rtol=1e-9, atol=1e-9)
+
+
+@settings(max_examples=20, deadline=None)
+@given(rows=st.lists(st.integers(0, 299), min_size=1, max_size=6, unique=True))
+def test_a_candidate_scores_the_same_alone_or_in_company(rows):
+    """Candidates are scored independently: batching must not change any score."""
+    peaks = entry_peaks(ARRAYS, ROW, jitter=0.01)
+    ids = [int(ARRAYS.entry_id[r]) for r in rows]
+    together = score_entries(peaks, INDEX, ids)
+    alone = [score_entries(peaks, INDEX, [i])[0] for i in ids]
+    # Padding to a common line count must not leak between candidates: equal to rounding.
+    np.testing.assert_allclose([c.score for c in together], [c.score for c in alone], rtol=1e-9, atol=1e-9)
