@@ -35,10 +35,11 @@ _BLOCK = 1_000_000
 
 
 def miller_sphere(crystal: Crystal, d_min: float) -> tuple[np.ndarray, np.ndarray]:
-    """All hkl ≠ 000 with d ≥ d_min.
+    """Half of the hkl ≠ 000 with d ≥ d_min: one of each Friedel pair (h, −h).
 
-    The box |h| ≤ a/d_min, |k| ≤ b/d_min, |l| ≤ c/d_min holds the whole sphere because
-    h = a·r* and |r*| = 1/d.
+    The half-space is h > 0, or h = 0 and k > 0, or h = k = 0 and l > 0. The box
+    |h| ≤ a/d_min, |k| ≤ b/d_min, |l| ≤ c/d_min holds the whole sphere because h = a·r* and
+    |r*| = 1/d.
 
     Returns
     -------
@@ -48,11 +49,14 @@ def miller_sphere(crystal: Crystal, d_min: float) -> tuple[np.ndarray, np.ndarra
     """
     gstar = crystal.reciprocal_metric
     limits = np.floor(np.array(crystal.cell[:3]) / d_min + 1e-9).astype(np.int64)
-    axes = [np.arange(-m, m + 1, dtype=np.int64) for m in limits]
+    axes = [np.arange(0, limits[0] + 1, dtype=np.int64)] + [np.arange(-m, m + 1, dtype=np.int64) for m in limits[1:]]
     hkl = np.stack(np.meshgrid(*axes, indexing="ij"), axis=-1).reshape(-1, 3)
+    h, k, l = hkl.T
+    half = (h > 0) | ((h == 0) & ((k > 0) | ((k == 0) & (l > 0))))
+    hkl = hkl[half]
     hkl_f = hkl.astype(float)
     inv_d2 = np.sum((hkl_f @ gstar) * hkl_f, axis=1)
-    inside = (inv_d2 > 0) & (inv_d2 <= (1.0 + 1e-12) / (d_min * d_min))
+    inside = inv_d2 <= (1.0 + 1e-12) / (d_min * d_min)
     return hkl[inside], inv_d2[inside]
 
 
@@ -67,7 +71,9 @@ def unique_reflections(
     Parameters
     ----------
     hkl : ndarray, shape (n, 3), int
-        Every reflection of a sphere.
+        One of each Friedel pair of a sphere (see :func:`miller_sphere`). The Laue group holds
+        the inversion, so every orbit is closed under h → −h and its size is twice the number
+        of its members in the half-space.
     inv_d2 : ndarray, shape (n,)
         1/d² of each reflection, Å⁻².
     laue : ndarray, shape (k, 3, 3), int
@@ -77,7 +83,7 @@ def unique_reflections(
     -------
     rep : ndarray, shape (u, 3), int
     multiplicity : ndarray, shape (u,), int
-        Members of each orbit inside the sphere.
+        Members of each orbit inside the sphere (Friedel mates included).
     inv_d2 : ndarray, shape (u,)
         Mean 1/d² of the members (they agree to rounding when the cell has the group's
         symmetry; at the sphere's edge an orbit may be cut by rounding, hence the mean).
@@ -110,7 +116,7 @@ def unique_reflections(
     best = np.argmax(score, axis=1)
     rep = np.rint(images[np.arange(images.shape[0]), best]).astype(np.int64)
     mean_inv_d2 = np.bincount(orbit.ravel(), weights=inv_d2, minlength=keys.size) / counts
-    return rep, counts.astype(np.int64), mean_inv_d2
+    return rep, 2 * counts.astype(np.int64), mean_inv_d2
 
 
 def structure_factors(
@@ -138,17 +144,18 @@ def structure_factors(
     names, atom_species = np.unique(np.array(species), return_inverse=True)
     # Atoms sharing a species and a B share f0·exp(−Bs²): the phase sums of a group are one
     # matrix product (reflections × atoms) @ (atoms × groups) with the occupancies.
-    group_keys = np.stack([atom_species.astype(float), np.round(crystal.b_iso, 6)], axis=1)
-    groups, atom_group = np.unique(group_keys, axis=0, return_inverse=True)
+    b_key = np.rint(crystal.b_iso * 1e6).astype(np.int64)  # B to 1e-6 Å²
+    group_keys, first_atom, atom_group = np.unique(
+        atom_species.ravel() * (b_key.max() + 1) + b_key, return_index=True, return_inverse=True
+    )
     atom_group = atom_group.ravel()
-    occ_matrix = np.zeros((crystal.n_atoms, groups.shape[0]))
+    occ_matrix = np.zeros((crystal.n_atoms, group_keys.size))
     occ_matrix[np.arange(crystal.n_atoms), atom_group] = crystal.occupancy
-    group_species = groups[:, 0].astype(np.int64)
-    group_b = groups[:, 1]
+    group_species = atom_species.ravel()[first_atom]
+    group_b = crystal.b_iso[first_atom]
     f0 = scattering.f0_table(tuple(names), np.sqrt(s2))[:, group_species]  # (n, groups)
     amplitude = f0 * np.exp(-np.multiply.outer(s2, group_b))  # (n, groups)
     if anomalous:
-        first_atom = np.array([np.nonzero(atom_group == g)[0][0] for g in range(groups.shape[0])])
         element_of_group = [crystal.elements[i] for i in first_atom]
         fp = np.array([anomalous[e][0] for e in element_of_group])
         fpp = np.array([anomalous[e][1] for e in element_of_group])
