@@ -128,7 +128,9 @@ def _table(result, source: str) -> Table:
         ("position", "right"), ("intensity", "right"), ("profile", "right"), ("lines", "right"),
         ("Δ2θ₀ °", "right"), ("disp. °", "right"), ("d-scale %", "right"),
     ):
-        t.add_column(name, justify=just, overflow="fold")
+        wrap = name in ("name", "formula")
+        t.add_column(name, justify=just, overflow="fold" if wrap else "ellipsis", no_wrap=not wrap,
+                     max_width=28 if wrap else None, min_width=14 if name == "name" else None)
     for k, c in enumerate(result.candidates, start=1):
         comp = c.components
         name = c.name + (f" (+{len(c.equivalents)} equivalent)" if c.equivalents else "")

@@ -9,9 +9,10 @@ area-normalised pseudo-Voigt profiles (:func:`refdb.profiles.pseudo_voigt`) with
   the observed peaks (0.5 when unknown);
 * areas proportional to the line intensities.
 
-The check value is Pearson's correlation coefficient between this drawn pattern and the
-scan minus its background, over the scanned points; it does not depend on the candidate's
-scale. Each line is only evaluated within ±:data:`HALF_WINDOW_FWHM` widths of its centre
+The check value is Pearson's correlation coefficient between the square roots of this drawn
+pattern and of the scan minus its background (negative values set to 0), over the scanned
+points; it does not depend on the candidate's scale. The square roots (the variance-stabilising
+transform of counts) stop one strong shared peak from making a poor candidate look good. Each line is only evaluated within ±:data:`HALF_WINDOW_FWHM` widths of its centre
 (the pseudo-Voigt tails beyond carry < 1 % of the area for η ≤ 0.5).
 """
 
@@ -103,7 +104,7 @@ def draw_patterns(two_theta: np.ndarray, lines: LineSet, scores: LineScores, pea
 
 def profile_correlation(scan: Scan, background: np.ndarray, lines: LineSet, scores: LineScores,
                         peaks: PeakList, width: WidthModel) -> np.ndarray:
-    """Pearson correlation of each candidate's drawn pattern with the net scan.
+    """Pearson correlation of √(drawn pattern) with √(net scan) for each candidate.
 
     Returns
     -------
@@ -114,7 +115,10 @@ def profile_correlation(scan: Scan, background: np.ndarray, lines: LineSet, scor
     sel = (scan.two_theta >= lo) & (scan.two_theta <= hi)
     grid = np.asarray(scan.two_theta, dtype=float)[sel]
     net = (np.asarray(scan.counts, dtype=float) - np.asarray(background, dtype=float))[sel]
-    model = draw_patterns(grid, lines, scores, peaks, width)
+    # Square roots (as for counting statistics) keep the strongest peak from deciding alone:
+    # a candidate that shares only the main peak must also answer for its other lines.
+    model = np.sqrt(np.maximum(draw_patterns(grid, lines, scores, peaks, width), 0.0))
+    net = np.sqrt(np.maximum(net, 0.0))
     mc = model - model.mean(axis=1, keepdims=True)
     nc = net - net.mean()
     num = mc @ nc
