@@ -122,8 +122,9 @@ class Crystal:
     @property
     def cell_mass(self) -> float:
         """Σ occupancy × atomic mass over the unit cell, g/mol."""
-        masses = np.array([scattering.atomic_mass(e) for e in self.elements])
-        return float(np.sum(self.occupancy * masses))
+        names, index = np.unique(np.array(self.elements), return_inverse=True)
+        masses = np.array([scattering.atomic_mass(str(e)) for e in names])  # one per element
+        return float(np.sum(self.occupancy * masses[index.ravel()]))
 
     @property
     def density(self) -> float:

@@ -90,6 +90,23 @@ def simulate_scan(
     InputError
         Bad grid, negative weights, a measured phase without I/Ic in a mixture, per-phase
         settings of the wrong length, non-positive counts or cell scale.
+
+    Notes
+    -----
+    The strongest point of the crystalline pattern is scaled to ``counts`` before background
+    and noise, so weight fractions are relative: a 30:70 mixture gives the intensity ratio
+    of the phases that 30 % and 70 % by weight give in a real flat sample. Lines are drawn
+    from 2° below to 2° above the grid so that edge peaks have their tails.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from refdb.radiation import radiation_for
+    >>> from refdb.structure import corundum_reference, simulate_scan
+    >>> grid = np.arange(20.0, 80.0, 0.02)
+    >>> scan = simulate_scan(corundum_reference(), radiation_for("Cu"), grid, seed=1)
+    >>> len(scan) == grid.size
+    True
     """
     grid = checked_grid(two_theta)
     if not np.isfinite(counts) or counts <= 0:
