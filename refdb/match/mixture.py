@@ -7,16 +7,17 @@ Procedure (:func:`decompose`)
    function fitted to the peak widths).
 2. Round by round: search the library with the peaks not yet explained
    (:func:`refdb.match.search.search`), fit each of the leading candidates together with the
-   phases already accepted (scales only, at the candidate's own shift and d-scale), and try
-   them in order of the improvement in χ² they bring. The first one that passes the
-   acceptance test below is added, the whole mixture is refined
-   (:func:`refdb.match.refine.refine_mixture`), and the scan's peaks that the refined
-   mixture does not account for (net counts above the calculated ones by 3σ and by
-   :data:`MISFIT_FRACTION`) feed the next round's search.
+   phases already accepted (scales only, at the candidate's own d-scale), and refine them in
+   order of the improvement in χ² they bring, :data:`REFINED_PER_ROUND` at a time. Of those
+   that pass the acceptance test below, the one with the lowest refined χ² is added (each
+   trial refines the whole mixture with :func:`refdb.match.refine.refine_mixture`), and the
+   scan's peaks that the refined mixture does not account for (net counts above the
+   calculated ones by 3σ and by :data:`MISFIT_FRACTION`) feed the next round's search; the
+   search's profile check compares candidates with the scan minus the calculated phases.
 3. Stop when no candidate passes, no significant residual peak is left, or ``max_phases``
-   are accepted. Then refine all phases together and drop, one at a time, any phase whose
-   removal no longer fails the same test (a phase accepted early can be made redundant by
-   later ones).
+   are accepted. Then, on the joint fit, drop one at a time (weakest first) any phase that
+   no longer passes: its removal costs no more than the threshold, or its own lines no
+   longer stand (a phase accepted early can be made redundant by later ones).
 4. Weight fractions (:mod:`refdb.match.quant`), detection limits (:mod:`refdb.match.detection`)
    and the peaks of the final residual ("unexplained peaks").
 
@@ -58,7 +59,7 @@ import numpy as np
 
 from refdb.errors import InputError
 from refdb.match.detection import DetectionLimit, detection_limits
-from refdb.match.quant import Quantification, quantify
+from refdb.match.quant import METHODS, Quantification, quantify
 from refdb.match.refine import (
     PhaseStart,
     RefinementResult,
@@ -75,6 +76,8 @@ from refdb.scan.types import PeakList, Scan
 
 #: Parameters a phase adds to the model (scale, d-scale, width factor).
 PARAMETERS_PER_PHASE = 3
+#: Candidates refined side by side per round before the best passing one is taken.
+REFINED_PER_ROUND = 3
 #: Strongest lines of a phase examined for presence.
 STRONG_LINES_CHECKED = 8
 #: Net observed / predicted counts a line needs to count as present.
@@ -229,7 +232,7 @@ def decompose(
     tags: Iterable[str] = (),
     kind: str | None = None,
     max_phases: int = 6,
-    candidates_per_round: int = 6,
+    candidates_per_round: int = 12,
     min_significance: float = 3.5,
     min_delta_chi2: float = 25.0,
     quant_method: str = "auto",
@@ -250,7 +253,8 @@ def decompose(
     max_phases : int
         At most this many phases, 1–12. Default 6.
     candidates_per_round : int
-        Leading search candidates fitted per round. Default 6.
+        Leading search candidates tried per round (a scale-only fit each; only those that
+        improve χ² enough are refined). Default 12.
     min_significance : float
         Peak-search threshold (σ) for scan and residual peaks. Default 3.5.
     min_delta_chi2 : float
@@ -276,8 +280,6 @@ def decompose(
     """
     from refdb.match.search import search
     from refdb.scan.peaks import find_peaks
-
-    from refdb.match.quant import METHODS
 
     if quant_method.strip().lower() not in METHODS:
         raise InputError(f"unknown quantification method {quant_method!r}", f"choose one of {', '.join(METHODS)}")
@@ -310,7 +312,7 @@ def decompose(
     notes: list[str] = list(peaks_all.warnings)
     std_index = None
     if standard is not None:
-        std_id, std_frac = standard
+        std_id = standard[0]
         got = library.get_many([int(std_id)])
         if not got:
             raise InputError(f"internal standard entry {std_id} is not in the library", "see `refdb list`")
@@ -329,8 +331,11 @@ def decompose(
         if len(peaks) == 0:
             break
         taken = {r.id for r in refs}
+        rest = ctx.residual_scan(fit)
         result = search(
-            peaks, index, **filters, top=candidates_per_round + len(taken), profile_check=False,
+            peaks, index, **filters, top=candidates_per_round + len(taken), scan=rest,
+            background=np.clip(np.minimum(ctx.background, rest.counts), 0.0, None) if fit is None else
+            np.clip(fit.background, 0.0, None),
         )
         cands = [c for c in result.candidates if c.entry_id not in taken and c.entry_id not in rejected][
             :candidates_per_round
@@ -348,22 +353,33 @@ def decompose(
                 st = replace(st, zero_shift=fit.phases[0].zero_shift, displacement=fit.phases[0].displacement)
             trials.append((ctx.gain_with(fit, chi2_now, ref, st), c, ref, st))
         trials.sort(key=lambda t: -t[0])
+        # Refine the leading trials in groups of REFINED_PER_ROUND and keep the passing one with
+        # the lowest χ²: scale-only gains rank candidates roughly, and an isostructural entry
+        # with a stretched cell can come first although another fits better once refined.
         accepted = False
+        viable = []
         for gain, c, ref, st in trials:
             if gain <= threshold:
-                why = f"Δχ²/GoF {gain:.0f} not above {threshold:.0f}"
-                rejected[c.entry_id] = Rejection(c.name, c.formula, c.entry_id, why)
-                continue
-            trial_fit = ctx.refine(refs + [ref], _carry(fit, starts) + [st])
-            verdict = ctx.judge(trial_fit, len(refs), chi2_now)
-            if verdict.ok:
+                rejected[c.entry_id] = Rejection(c.name, c.formula, c.entry_id, f"Δχ²/GoF {gain:.0f} not above {threshold:.0f}")
+            else:
+                viable.append((c, ref, st))
+        for g0 in range(0, len(viable), REFINED_PER_ROUND):
+            best = None
+            for c, ref, st in viable[g0 : g0 + REFINED_PER_ROUND]:
+                trial_fit = ctx.refine(refs + [ref], _carry(fit, starts) + [st])
+                verdict = ctx.judge(trial_fit, len(refs), chi2_now)
+                if not verdict.ok:
+                    rejected[c.entry_id] = Rejection(c.name, c.formula, c.entry_id, verdict.reason)
+                elif best is None or trial_fit.chi2 < best[0].chi2:
+                    best = (trial_fit, verdict, c, ref, st)
+            if best is not None:
+                trial_fit, verdict, c, ref, st = best
                 refs.append(ref)
                 starts = _carry(trial_fit, starts + [st])
                 evidence.append(verdict.evidence(c.score, rnd))
                 fit, chi2_now = trial_fit, trial_fit.chi2
                 accepted = True
                 break
-            rejected[c.entry_id] = Rejection(c.name, c.formula, c.entry_id, verdict.reason)
         if not accepted:
             break
 
@@ -429,6 +445,14 @@ class _Context:
         if not quick:
             self.eta = fit.eta
         return fit
+
+    def residual_scan(self, fit: RefinementResult | None) -> Scan:
+        """The scan minus the calculated phases of ``fit`` (background kept), clipped at zero:
+        what the search's profile check should compare candidates with."""
+        if fit is None or not fit.phases:
+            return self.scan
+        counts = np.clip(self.scan.counts - fit.phase_profiles.sum(axis=0), 0.0, None)
+        return replace(self.scan, counts=counts)
 
     def _solve(self, cols: np.ndarray, fit: RefinementResult | None) -> float:
         """χ² of the best non-negative combination of ``cols`` plus the background."""

@@ -6,9 +6,10 @@ The calculated scan is
 
 where ``b`` is an estimated background (SNIP, or one given by the caller) plus a Chebyshev
 polynomial, ``S_p ≥ 0`` the scale factor of phase p and ``Y_p`` its unit-scale profile: every
-line drawn as a pseudo-Voigt for every wavelength of the radiation, with strength
-``m|F|² · LP`` (computed entries) or the observed intensity (measured entries; see
-:mod:`refdb.match._phase_lines`).
+stick (one per line and emission wavelength, from
+:func:`refdb.structure.pattern.stick_pattern`: ``m|F|² · LP`` for computed entries, the
+observed intensity moved to the scan's wavelength for measured ones) drawn as a pseudo-Voigt
+with :func:`refdb.structure.pattern.sum_profiles`.
 
 Nonlinear parameters: a shared zero shift and sample displacement (or one pair per phase), a
 shared pseudo-Voigt mixing η, and per phase a d-scale (cell dilation, ±2 %), a width factor on

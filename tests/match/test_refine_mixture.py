@@ -33,8 +33,8 @@ def test_weight_fractions_recovered(four_phase):
     refs, truth, scan, _, fit = four_phase
     q = quantify(np.array([p.scale for p in fit.phases]), fit.scale_covariance, refs, scan.radiation)
     # 1.5 wt %: the fitted uncertainties are 0.1–0.4 wt % (Poisson noise at 10⁴ counts), and
-    # the model differs from the generator in the truncated Lorentzian tails (≤ 1.1 % of a
-    # line's area) and the background form; 1.5 wt % is half the 3 wt % goal of the benchmark.
+    # the model differs from the generator in the truncated Lorentzian tails (≤ 0.8 % of a
+    # line's area beyond ±40 FWHM) and the background form; 1.5 wt % is half the 3 wt % goal of the benchmark.
     np.testing.assert_allclose(q.weight_fraction, truth, atol=0.015)
     assert q.method == "cell" and q.basis == "crystalline"
     assert np.isclose(q.weight_fraction.sum(), 1.0)
@@ -45,7 +45,7 @@ def test_weight_fractions_recovered(four_phase):
 def test_scales_and_quality(four_phase):
     _, _, _, scales, fit = four_phase
     ratio = np.array([p.scale for p in fit.phases]) / scales
-    # 3 %: each scale is set by thousands of counts; the truncated tails bias them ≤ 1.1 %.
+    # 3 %: each scale is set by thousands of counts; the truncated tails bias them ≤ 0.8 %.
     np.testing.assert_allclose(ratio, 1.0, atol=0.03)
     # A correct model on Poisson data gives χ²/ν ≈ 1 ± √(2/ν) ≈ ±0.025 for ν ≈ 3500; allow
     # 0.85–1.25 for the small model differences named above.
