@@ -1,6 +1,6 @@
 """Bragg conversions used by the scan code, against published and derived check values.
 
-Si d-spacings and 2θ: /work/shared/check-values.md section 7 (computed from NIST SRM 640f,
+Si d-spacings and 2θ: ../shared/check-values.md section 7 (computed from NIST SRM 640f,
 a = 5.431144 Å, and Cu Kα1 = 1.54059292 Å from ITC Vol. C (2006) Table 4.2.2.6).
 """
 

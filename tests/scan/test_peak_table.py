@@ -1,5 +1,5 @@
 """Peak tables: d or 2θ columns with intensities; conversions checked against the Si values of
-/work/shared/check-values.md section 7 (SRM 640f, Cu Kα1 1.54059292 Å)."""
+../shared/check-values.md section 7 (SRM 640f, Cu Kα1 1.54059292 Å)."""
 
 from __future__ import annotations
 

@@ -2,7 +2,7 @@
 
 The generator (tests/scan/_synthetic.py) draws Poisson counts of pseudo-Voigt peaks with their
 Kα2 lines on a sloping background, written without refdb's profile or Bragg code. Positions of
-standards come from /work/shared/check-values.md section 7 (Si, a = 5.431144 Å from NIST
+standards come from ../shared/check-values.md section 7 (Si, a = 5.431144 Å from NIST
 SRM 640f, λ = 1.54059292 Å from ITC Vol. C Table 4.2.2.6).
 """
 
