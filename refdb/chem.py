@@ -1,8 +1,8 @@
 """Chemical formulas: parsing, element sets and Hill-order reduced formulas.
 
 Accepted input: element symbols with optional counts (integers or decimals), parentheses and
-brackets with multipliers, hydrate dots (``·``, ``.`` or ``*`` followed by an optional
-count), and the space-separated CIF style (``Fe3 O4``). Charges in CIF type symbols
+brackets with multipliers, hydrate dots (``·``, ``•`` or ``*`` followed by an optional
+count; a ``.`` is always a decimal point), and the space-separated CIF style (``Fe3 O4``). Charges in CIF type symbols
 (``Fe3+``) are not part of a formula.
 """
 
@@ -13,12 +13,12 @@ import gemmi
 
 from refdb.errors import InputError
 
-_TOKEN = re.compile(r"([A-Z][a-z]?)|(\d+(?:\.\d+)?)|([(\[])|([)\]])|(\s+)|([·.*•])")
+_TOKEN = re.compile(r"([A-Z][a-z]?)|(\d*\.?\d+)|([(\[])|([)\]])|(\s+)")
 
 
 def is_element(symbol: str) -> bool:
     """True for a real chemical element symbol (H … Og), case-sensitive; D counts as H."""
-    if symbol == "D":
+    if symbol in ("D", "T"):
         return True
     try:
         return gemmi.Element(symbol).atomic_number > 0 and gemmi.Element(symbol).name == symbol
@@ -38,7 +38,8 @@ def parse_formula(formula: str) -> dict[str, float]:
     if not text:
         raise InputError("empty chemical formula")
     # Split off hydrate parts: "A·nB" → A + n×B
-    parts = re.split(r"\s*[·•*]\s*|(?<=[A-Za-z\d)\]])\.(?=\d*[A-Z(])", text)
+    # Only ·, • and * separate hydrate parts: a "." is a decimal point (CIF sums like "O6.9").
+    parts = re.split(r"\s*[·•*]\s*", text)
     total: dict[str, float] = {}
     for i, part in enumerate(parts):
         mult = 1.0
@@ -59,10 +60,10 @@ def _parse_group(text: str, original: str) -> dict[str, float]:
         m = _TOKEN.match(text, pos)
         if not m:
             raise InputError(f"cannot read formula {original!r} at {text[pos:pos + 8]!r}")
-        el, num, opn, cls, _space, _dot = m.groups()
+        el, num, opn, cls, _space = m.groups()
         pos = m.end()
         if el:
-            if el == "D":
+            if el in ("D", "T"):  # deuterium and tritium count as hydrogen
                 el = "H"
             if not is_element(el):
                 raise InputError(f"unknown element {el!r} in formula {original!r}")
@@ -88,8 +89,6 @@ def _parse_group(text: str, original: str) -> dict[str, float]:
             for k, v in group.items():
                 stack[-1][k] = stack[-1].get(k, 0.0) + v
             last = group
-        else:
-            last = None if _dot else last
     if len(stack) != 1:
         raise InputError(f"unbalanced parentheses in formula {original!r}")
     if not stack[0]:

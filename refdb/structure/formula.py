@@ -1,8 +1,7 @@
-"""Chemical formulas: parse ``_chemical_formula_sum`` and write Hill order.
+"""Formulas of crystal structures: counts from the atoms of a cell, Hill order of elements.
 
 Hill order (Hill 1900, J. Am. Chem. Soc. 22, 478): with carbon present, C first, then H, then
-the other elements alphabetically; without carbon, all elements alphabetically. Counts of 1
-are omitted; fractional counts keep up to four significant decimals.
+the other elements alphabetically; without carbon, all elements alphabetically.
 """
 
 from __future__ import annotations
@@ -11,40 +10,11 @@ import re
 
 import numpy as np
 
-from refdb.errors import InputError
+from refdb.chem import hill_formula, parse_formula
 from refdb.structure import scattering
 
-_TOKEN = re.compile(r"([A-Z][a-z]?)\s*(\d*\.?\d*)")
-
-
-def parse_formula(text: str) -> dict[str, float]:
-    """Element counts of a formula such as ``"Al2 O3"``, ``"C3 D3 O7 Sr"`` or ``"Ca0.5Mg0.5"``.
-
-    D and T count as H. Charges and brackets are not part of ``_chemical_formula_sum``.
-
-    Raises
-    ------
-    InputError
-        Text that is not a sum formula, or an unknown element.
-    """
-    cleaned = re.sub(r"[\s'\"]", "", text)
-    if not cleaned or _TOKEN.sub("", cleaned):
-        raise InputError(f"formula {text!r} is not a sum formula", "write it like 'Al2 O3'")
-    counts: dict[str, float] = {}
-    for symbol, number in _TOKEN.findall(cleaned):
-        if not scattering.known_element(symbol):
-            raise InputError(f"formula {text!r}: unknown element {symbol!r}")
-        element = scattering.chemical_element(symbol)
-        counts[element] = counts.get(element, 0.0) + (float(number) if number not in ("", ".") else 1.0)
-    return counts
-
-
-def hill_formula(counts: dict[str, float]) -> str:
-    """Write element counts in Hill order without spaces, e.g. ``{"O": 3, "Al": 2}`` → ``Al2O3``."""
-    elements = sorted(counts)
-    if "C" in counts:
-        elements = ["C"] + (["H"] if "H" in counts else []) + [e for e in elements if e not in ("C", "H")]
-    return "".join(f"{e}{_count(counts[e])}" for e in elements if counts[e] > 0)
+# Parsing and Hill-order writing are shared with measured references: refdb.chem.
+__all__ = ["formula_from_atoms", "hill_formula", "hill_order", "parse_formula"]
 
 
 def hill_order(elements: set[str] | list[str] | tuple[str, ...]) -> tuple[str, ...]:
@@ -60,11 +30,3 @@ def formula_from_atoms(elements: tuple[str, ...], occupancy: np.ndarray, z: floa
         key = scattering.chemical_element(e)
         counts[key] = counts.get(key, 0.0) + float(np.sum(occupancy[mask]))
     return {e: c / (z or 1.0) for e, c in counts.items()}
-
-
-def _count(x: float) -> str:
-    if abs(x - 1.0) < 1e-6:
-        return ""
-    if abs(x - round(x)) < 1e-6:
-        return str(int(round(x)))
-    return f"{x:.4f}".rstrip("0").rstrip(".")

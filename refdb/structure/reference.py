@@ -45,7 +45,9 @@ def reference_from_crystal(crystal: Crystal, *, d_min: float = 0.7, rir: float |
     if len(lines) == 0:
         raise InputError(f"{crystal.file_name or crystal.name}: no reflection with d ≥ {d_min} Å")
     counts = _formula_counts(crystal)
-    source = "COD" if crystal.database_code else (crystal.journal or "in-house")
+    # "COD" for database entries, "literature" for a structure typed in from a paper (it has a
+    # journal or DOI), else "in-house"; the citation itself is kept in its own fields.
+    source = "COD" if crystal.database_code else ("literature" if (crystal.journal or crystal.doi) else "in-house")
     ref = ReferenceData(
         kind="computed",
         name=crystal.name,
