@@ -11,7 +11,9 @@
 4. Candidates whose fitting windows overlap are fitted together
    (:mod:`refdb.scan.profile_fit`); a fitted peak whose height is below ``min_significance``
    times its standard uncertainty is removed and its group fitted again.
-5. Optionally, an internal standard corrects zero shift and sample displacement
+5. Significant bumps of the smoothed residual become new candidates and the groups they touch
+   are fitted again (shoulders without a maximum of their own).
+6. Optionally, an internal standard corrects zero shift and sample displacement
    (:mod:`refdb.scan.standard`).
 """
 
@@ -200,6 +202,77 @@ def _fit_until_significant(center: np.ndarray, height: np.ndarray, fwhm: float, 
     return dataclasses.replace(res, **fields), dropped + int((~good).sum())
 
 
+def _fit_all(tt: np.ndarray, h: np.ndarray, fwhm: float, setup: FitSetup,
+             min_significance: float) -> tuple[list[GroupResult], int]:
+    """Group candidates and fit every group; the fits and the number of peaks rejected."""
+    results: list[GroupResult] = []
+    dropped = 0
+    for members in _groups(tt, fwhm, setup):
+        res, n_drop = _fit_until_significant(tt[members], h[members], fwhm, setup, min_significance)
+        dropped += n_drop
+        if res is not None:
+            results.append(res)
+    return results, dropped
+
+
+#: A residual bump must also exceed this fraction of the fitted net counts there, so that small
+#: profile-shape misfits of strong peaks (asymmetry, common practice, no source) are not taken
+#: for shoulders.
+_SHOULDER_FRACTION = 0.05
+
+
+def _second_pass(scan: Scan, results: list[GroupResult], fwhm: float, setup: FitSetup,
+                 min_significance: float, smooth: bool) -> tuple[list[GroupResult], int, int]:
+    """Look for significant bumps in the residual (shoulders without a maximum of their own).
+
+    Each bump joins the fitted peaks of the groups whose windows it touches, and those groups
+    are fitted again; the others are kept.
+    """
+    model = setup.background.copy()
+    net = np.zeros_like(model)
+    for r in results:
+        model[r.lo : r.hi] = r.model
+        net[r.lo : r.hi] = r.model - r.local_background
+    step = float(np.median(np.diff(scan.two_theta)))
+    window, factor = _smoothing(fwhm / step, smooth)
+    resid = scan.counts - model
+    smooth_resid = savgol_filter(resid, window, 2) if window > 1 else resid
+    floor = np.maximum(min_significance * factor * scan.sigma, _SHOULDER_FRACTION * net)
+    idx, _ = _local_maxima(smooth_resid, height=floor)
+    inside = np.zeros(idx.size, dtype=bool)
+    for r in results:
+        inside |= (idx >= r.lo) & (idx < r.hi)
+    idx = idx[inside]  # outside every window the first pass already saw the data
+    if idx.size == 0:
+        return results, 0, 0
+    new_tt, new_h = scan.two_theta[idx], smooth_resid[idx]
+    touched = [i for i, r in enumerate(results) if np.any((idx >= r.lo) & (idx < r.hi))]
+    kept = [r for i, r in enumerate(results) if i not in touched]
+    tt = np.concatenate([new_tt] + [results[i].center for i in touched])
+    h = np.concatenate([new_h] + [results[i].height for i in touched])
+    order = np.argsort(tt)
+    refit, dropped = _fit_all(tt[order], h[order], fwhm, setup, min_significance)
+    # Keep the refit only where it explains the touched windows better (a refit can fall into
+    # a worse local minimum than the first fit).
+    region = np.zeros(model.size, dtype=bool)
+    for r in [results[i] for i in touched] + refit:
+        region[r.lo : r.hi] = True
+    before = _chi2(scan, results, setup.background, region)
+    after = _chi2(scan, kept + refit, setup.background, region)
+    if after >= before:
+        return results, int(idx.size), 0
+    return kept + refit, int(idx.size), dropped
+
+
+def _chi2(scan: Scan, results: list[GroupResult], background: np.ndarray, region: np.ndarray) -> float:
+    """Σ((counts − model)/σ)² over ``region`` for the model made of ``results``."""
+    model = background.copy()
+    for r in results:
+        model[r.lo : r.hi] = r.model
+    z = (scan.counts - model)[region] / scan.sigma[region]
+    return float(z @ z)
+
+
 def find_peaks(
     scan: Scan,
     *,
@@ -210,6 +283,7 @@ def find_peaks(
     fwhm: float | None = None,
     internal_standard: InternalStandard | np.ndarray | None = None,
     background_options: dict[str, Any] | None = None,
+    second_pass: bool = True,
 ) -> PeakSearch:
     """Find and fit the peaks of a scan.
 
@@ -234,6 +308,10 @@ def find_peaks(
         A standard in the sample, or its true Kα1 2θ positions (degrees).
     background_options : dict, optional
         Options passed to the background method.
+    second_pass : bool
+        After the first fits, look for significant bumps in the residual (shoulders that have
+        no maximum of their own, often hidden in a Kα2 line) and refit the groups they touch.
+        A bump must also exceed 5 % of the fitted net counts there.
 
     Returns
     -------
@@ -256,13 +334,11 @@ def find_peaks(
     setup = FitSetup(scan.two_theta, scan.counts, scan.sigma, bkg, ratios, weights, width)
     tt0, h0, facts = detect(scan, bkg, fwhm=width, min_significance=min_significance, smooth=smooth, ratios=ratios)
 
-    results: list[GroupResult] = []
-    dropped = 0
-    for members in _groups(tt0, width, setup):
-        res, n_drop = _fit_until_significant(tt0[members], h0[members], width, setup, min_significance)
+    results, dropped = _fit_all(tt0, h0, width, setup, min_significance)
+    if second_pass and results:
+        results, added, n_drop = _second_pass(scan, results, width, setup, min_significance, smooth)
+        facts["second_pass_candidates"] = added
         dropped += n_drop
-        if res is not None:
-            results.append(res)
 
     effective_bkg = bkg.copy()
     model = bkg.copy()

@@ -199,3 +199,17 @@ def test_d_from_fitted_position_matches_bragg():
     res = find_peaks(as_scan(syn))
     assert res.peaks.d[0] == pytest.approx(3.135672, abs=2e-4)
     assert CU_KA1 == CU.wavelength
+
+
+@pytest.mark.parametrize("seed", [0, 1, 2])
+def test_shoulder_in_the_kalpha2_line_is_found(seed):
+    # A reflection 0.12° (1.5 FWHM) above a five times stronger one sits just beyond that
+    # one's Kα2 line (+0.10°) and has no maximum of its own: the residual pass must find it.
+    syn = make_scan([40.0, 40.12], [150.0, 30.0], seed=seed)
+    res = find_peaks(as_scan(syn))
+    assert len(res.peaks) == 2
+    np.testing.assert_allclose(res.peaks.two_theta, [40.0, 40.12], atol=0.01)
+    # Area of the shoulder: its u is ~3 counts·° on 30 here, so 30 % is a > 3u bound.
+    assert res.peaks.area[1] == pytest.approx(30.0, rel=0.3)
+    without = find_peaks(as_scan(syn), second_pass=False)
+    assert len(without.peaks) <= 2
