@@ -76,8 +76,11 @@ def plot_peak_search(scan: Scan, result: PeakSearch, path: str | Path, *, title:
             top.annotate(f"{peaks.two_theta[i]:.2f}° ({peaks.d[i]:.3f} Å)", (lx, label_y), rotation=90,
                          ha="center", va="bottom", fontsize=7, color="tab:blue")
     top.set_ylabel("counts")
-    top.set_title(title or f"{scan.source} — {scan.radiation.describe()} — {len(peaks)} peaks", fontsize=10)
-    top.legend(loc="center right", fontsize=8, framealpha=0.9)
+    default = f"{scan.source} — {scan.radiation.describe()} — {len(peaks)} peaks"
+    if len(peaks) > MAX_LABELS:
+        default += f" (the {MAX_LABELS} highest labelled)"
+    top.set_title(title or default, fontsize=10)
+    top.legend(loc="upper left", bbox_to_anchor=(1.005, 1.0), fontsize=8, frameon=False)
     with np.errstate(divide="ignore", invalid="ignore"):
         weighted = result.residual / scan.sigma
     bottom.plot(x, weighted, "-", lw=0.6, color="0.3")
