@@ -11,10 +11,13 @@ import json
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from typer.testing import CliRunner
 
 from refdb.cli.app import app
 from refdb.cli.scan_cmds import PEAK_FIELDS
+from refdb.report.peaks_plot import spread_labels
 
 from ._synthetic import make_scan
 
@@ -101,3 +104,19 @@ def test_help_lists_formats_and_methods():
     text = " ".join(result.stdout.split())
     for name in ("xy", "csv", "pdcif", "snip", "asls", "rolling-ball"):
         assert name in text
+
+
+def test_stdin_input(scan_file):
+    result = CliRunner().invoke(app, ["peaks", "-", "--anode", "Cu", "--json"], input=scan_file.read_text())
+    assert result.exit_code == 0, result.output
+    assert json.loads(result.stdout)["source"] == "<stdin>"
+
+
+@settings(max_examples=60, deadline=None)
+@given(st.lists(st.floats(min_value=5.0, max_value=90.0), min_size=1, max_size=40))
+def test_label_positions_keep_their_gap(positions):
+    # Invariant of the label layout: sorted, inside the axis, at least one gap apart whenever
+    # the axis has room for all labels (40 × 1.0° < 85°).
+    xs = spread_labels(np.sort(positions), 5.0, 90.0, 1.0)
+    assert np.all(xs >= 5.0) and np.all(xs <= 90.0)
+    assert np.all(np.diff(xs) >= 1.0 - 1e-9)
