@@ -60,7 +60,8 @@ class GroupResult:
     ``center`` is the Kα1 2θ (degrees), ``area`` the Kα1 component's area (counts·degrees),
     ``height`` its height; ``u_*`` are standard uncertainties. ``lo:hi`` is the fitted slice of
     the scan, ``model`` the fitted counts there and ``local_background`` the estimated
-    background plus the group's straight-line correction.
+    background plus the group's straight-line correction; ``chi2`` is Σ((model − counts)/σ)²
+    over the window and ``n_free`` the number of fitted parameters.
     """
 
     center: np.ndarray
@@ -77,6 +78,8 @@ class GroupResult:
     model: np.ndarray
     local_background: np.ndarray
     converged: bool
+    chi2: float = 0.0
+    n_free: int = 0
 
 
 def line_centers(center: np.ndarray, ratios: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -154,7 +157,9 @@ def group_window(center: np.ndarray, fwhm: float, setup: FitSetup) -> tuple[floa
     return float(np.nanmin(lines)) - WINDOW_FWHM * fwhm, float(np.nanmax(lines)) + WINDOW_FWHM * fwhm
 
 
-def fit_group(center0: np.ndarray, height0: np.ndarray, fwhm0: np.ndarray, setup: FitSetup) -> GroupResult:
+def fit_group(center0: np.ndarray, height0: np.ndarray, fwhm0: np.ndarray, setup: FitSetup, *,
+              eta0: np.ndarray | None = None, fixed_shape: np.ndarray | None = None,
+              span: tuple[int, int] | None = None) -> GroupResult:
     """Fit one group of overlapping peaks.
 
     Parameters
@@ -162,6 +167,13 @@ def fit_group(center0: np.ndarray, height0: np.ndarray, fwhm0: np.ndarray, setup
     center0, height0, fwhm0 : ndarray, shape (k,)
         Starting Kα1 positions (degrees), net heights (counts) and FWHMs (degrees).
     setup : FitSetup
+    eta0 : ndarray, shape (k,), optional
+        Starting Lorentzian fractions (default 0.5).
+    fixed_shape : ndarray of bool, shape (k,), optional
+        Peaks whose FWHM and eta stay at ``fwhm0`` and ``eta0`` (their uncertainties are then 0
+        and do not enter the other parameters' covariance).
+    span : (int, int), optional
+        The slice of the scan to fit; by default the lines ± :data:`WINDOW_FWHM` FWHMs.
 
     Returns
     -------
@@ -170,42 +182,58 @@ def fit_group(center0: np.ndarray, height0: np.ndarray, fwhm0: np.ndarray, setup
         the typical FWHM, eta within 0–1, areas non-negative.
     """
     k = center0.size
-    lo_x, hi_x = group_window(center0, float(np.max(fwhm0)), setup)
-    lo, hi = np.searchsorted(setup.x, [lo_x, hi_x])
-    hi = max(hi, lo + 4 * k + 3)
-    lo = max(0, min(lo, hi - (4 * k + 3)))
-    hi = min(hi, setup.x.size)
+    if span is None:
+        lo_x, hi_x = group_window(center0, float(np.max(fwhm0)), setup)
+        lo, hi = np.searchsorted(setup.x, [lo_x, hi_x])
+        hi = max(hi, lo + 4 * k + 3)
+        lo = max(0, min(lo, hi - (4 * k + 3)))
+        hi = min(hi, setup.x.size)
+    else:
+        lo, hi = span
     x, y, s = setup.x[lo:hi], setup.y[lo:hi], setup.sigma[lo:hi]
     bkg = _edge_line(x, setup.background[lo:hi])
     step = float(np.median(np.diff(x))) if x.size > 1 else setup.fwhm
     reach = np.maximum(fwhm0, 2.0 * step)
-    eta0 = np.full(k, 0.5)
+    eta0 = np.full(k, 0.5) if eta0 is None else np.clip(np.asarray(eta0, dtype=float), 0.0, 1.0)
     area0 = np.maximum(height0, 1.0) / pv_height_factor(fwhm0, eta0) / (1.0 + 0.5 * setup.weights[1:].sum())
     w_lo, w_hi = 0.25 * setup.fwhm, 4.0 * max(setup.fwhm, float(fwhm0.max()))
     p0 = np.concatenate([center0, area0, np.clip(fwhm0, w_lo * 1.01, w_hi * 0.99), eta0, [0.0, 0.0]])
     lower = np.concatenate([center0 - reach, np.zeros(k), np.full(k, w_lo), np.zeros(k), [-np.inf, -np.inf]])
     upper = np.concatenate([center0 + reach, np.full(k, np.inf), np.full(k, w_hi), np.ones(k), [np.inf, np.inf]])
+    free = np.ones(p0.size, dtype=bool)
+    if fixed_shape is not None and np.any(fixed_shape):
+        fixed = np.flatnonzero(fixed_shape)
+        free[2 * k + fixed] = False
+        free[3 * k + fixed] = False
+        p0[2 * k + fixed] = fwhm0[fixed]
+        p0[3 * k + fixed] = eta0[fixed]
 
     # trf asks for the Jacobian at the point whose residual it has just accepted; computing
     # both together and keeping the last Jacobian saves evaluating the profiles twice.
     last: dict[str, np.ndarray] = {}
 
-    def residual(p: np.ndarray) -> np.ndarray:
-        model, jac = _profiles(x, p, k, setup, True)
-        last["p"], last["jac"] = p.copy(), jac
+    def full(q: np.ndarray) -> np.ndarray:
+        p = p0.copy()
+        p[free] = q
+        return p
+
+    def residual(q: np.ndarray) -> np.ndarray:
+        model, jac = _profiles(x, full(q), k, setup, True)
+        last["q"], last["jac"] = q.copy(), jac
         return (model + bkg - y) / s
 
-    def jacobian(p: np.ndarray) -> np.ndarray:
-        jac = last["jac"] if np.array_equal(p, last.get("p")) else _profiles(x, p, k, setup, True)[1]
-        return jac / s[:, None]
+    def jacobian(q: np.ndarray) -> np.ndarray:
+        jac = last["jac"] if np.array_equal(q, last.get("q")) else _profiles(x, full(q), k, setup, True)[1]
+        return jac[:, free] / s[:, None]
 
     # Tolerances 1e-6 (relative) stop far below the statistical uncertainties of the
     # parameters (≥ 1e-4 relative for any peak worth reporting) and halve the iterations.
-    fit = least_squares(residual, p0, jac=jacobian, bounds=(lower, upper), x_scale="jac",
+    fit = least_squares(residual, p0[free], jac=jacobian, bounds=(lower[free], upper[free]), x_scale="jac",
                         ftol=1e-6, xtol=1e-6, gtol=1e-6, max_nfev=60 * k + 100)
-    p = fit.x
+    p = full(fit.x)
     c, a, w, eta, _, _ = _unpack(p, k)
-    cov = _covariance(fit.jac, fit.fun, p.size)
+    cov = np.zeros((p.size, p.size))
+    cov[np.ix_(free, free)] = _covariance(fit.jac, fit.fun, int(free.sum()))
     hf = pv_height_factor(w, eta)
     grad_h = np.zeros((k, p.size))
     idx = np.arange(k)
@@ -221,6 +249,7 @@ def fit_group(center0: np.ndarray, height0: np.ndarray, fwhm0: np.ndarray, setup
         u_center=np.sqrt(np.maximum(var[:k], 0.0)), u_area=np.sqrt(np.maximum(var[k : 2 * k], 0.0)),
         u_height=u_height, u_fwhm=np.sqrt(np.maximum(var[2 * k : 3 * k], 0.0)),
         lo=int(lo), hi=int(hi), model=model, local_background=local, converged=bool(fit.success and fit.status > 0),
+        chi2=float(fit.fun @ fit.fun), n_free=int(free.sum()),
     )
 
 

@@ -213,3 +213,27 @@ def test_shoulder_in_the_kalpha2_line_is_found(seed):
     assert res.peaks.area[1] == pytest.approx(30.0, rel=0.3)
     without = find_peaks(as_scan(syn), second_pass=False)
     assert len(without.peaks) <= 2
+
+
+def test_weak_peak_areas_with_shape_from_the_trend():
+    """Weak peaks (height/√background = 40) among strong ones (160), 5 seeds.
+
+    With FWHM and eta taken from the strong peaks' trend the weak areas' rms error is about
+    2 % (measured 1.9 % over 10 seeds) against 3.6 % with free shapes; at most 2 of the 35
+    weak areas may miss by more than 5 % (≈ 2.6 rms, about 1 % of cases each).
+    """
+    strong = np.array([14.0, 24.0, 34.0, 44.0, 54.0, 64.0, 74.0])
+    weak = strong + 5.0
+    area = 40.0 * np.sqrt(200.0) / pv_height(1.0, 0.08, 0.4)
+    err_trend, err_free = [], []
+    for seed in range(5):
+        syn = make_scan(np.r_[strong, weak], np.r_[np.full(7, 4 * area), np.full(7, area)], eta=0.4,
+                        background=(200.0, 0.0), seed=seed)
+        for flag, errs in ((True, err_trend), (False, err_free)):
+            res = find_peaks(as_scan(syn), shape_from_trend=flag)
+            j = match(res.peaks.two_theta, weak)
+            errs.extend(res.peaks.area[j] / area - 1.0)
+    err_trend, err_free = np.array(err_trend), np.array(err_free)
+    assert np.sum(np.abs(err_trend) > 0.05) <= 2
+    assert np.sqrt(np.mean(err_trend**2)) < 0.03
+    assert np.sqrt(np.mean(err_trend**2)) < np.sqrt(np.mean(err_free**2))
