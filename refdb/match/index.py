@@ -57,9 +57,9 @@ STRONG_LINES = 10
 STRONG_MAX_TWO_THETA = 120.0
 #: Only strong lines at least this strong (relative to the entry's strongest) are in the
 #: sorted table the prefilter's first pass reads; weaker ones cannot earn much there.
-SORTED_MIN_WEIGHT = 0.2
+SORTED_MIN_WEIGHT = 0.12
 #: Version of the strong-table files (part of their names; older ones are rebuilt).
-_STRONG_LAYOUT = 2
+_STRONG_LAYOUT = 4
 #: Entries processed at once while building strong tables (bounds the temporary memory).
 _CHUNK_LINES = 4_000_000
 

@@ -13,15 +13,17 @@ Two passes over the strong-line table of :mod:`refdb.match.index` (each entry's
    reference line only earns its weight at a strong observed peak (the idea behind Hanawalt's
    search by the strongest lines; Hanawalt, Rinn & Frevel 1938, Ind. Eng. Chem. Anal. Ed. 10,
    457). Found with ``np.searchsorted`` on the sorted ln d and summed with ``np.bincount``. An
-   entry keeps the votes U of its best slice. Its pass-1 key is ``min(U, D) / (D + 1/2)``, D
-   the summed weight of its strong lines inside the scanned d range (a candidate with few lines
-   in range is weaker evidence). A line inside the windows of two peaks votes twice, which
+   entry keeps the votes U of its best slice. Its pass-1 key is
+   ``min(U, D) / (D + PASS1_SOFTENING)``, D the summed weight of its voting strong lines (weight
+   ≥ SORTED_MIN_WEIGHT) inside the scanned d range (a candidate with few lines in range is
+   weaker evidence). A line inside the windows of two peaks votes twice, which
    the cap at D bounds; merging windows would cost a sort per query.
 2. **Scale-consistent votes** for the best :data:`N_PASS2` entries: every (strong line,
    observed peak) pair within reach marks the d-scales ε on a grid of step :data:`SCALE_STEP`
    for which the two agree, with the vote ``min(w_k, o_j)`` (the best peak per line and ε);
-   the best ε of each entry is the one whose matched lines carry the most votes. The pass-2 key is the same ratio with those votes, and the best ε is handed to
-   the detailed score as a starting value.
+   the best ε of each entry is the one whose matched lines carry the most votes. The pass-2
+   key is ``votes / (D₂ + PASS1_SOFTENING)`` with D₂ the weight of all K strong lines in range,
+   and the best ε is handed to the detailed score as a starting value.
 
 Nothing here decides an identification; it only keeps the work of the detailed score (which
 sees every line of an entry) proportional to a shortlist instead of to the library.
@@ -34,20 +36,22 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from refdb.match.index import SearchIndex, expand_ranges
+from refdb.match.index import SORTED_MIN_WEIGHT, SearchIndex, expand_ranges
 from refdb.match.score import D_SCALE_MAX, WidthModel, TOL_FWHM, TOL_MIN
 
 if TYPE_CHECKING:
     from refdb.scan.types import PeakList
 
 #: Observed peaks (strongest first) that open windows.
-N_OBSERVED = 20
+N_OBSERVED = 14
+#: Added to D in the pass-1 key: an entry with few voting lines is weaker evidence.
+PASS1_SOFTENING = 0.25
 #: Entries passed from the first to the second pass.
 N_PASS2 = 600
 #: Entries with the most pass-1 votes whose key is computed (the key needs their strong lines).
 PASS1_KEEP = 10 * N_PASS2
 #: Allowance for zero shift plus displacement in the windows, degrees 2θ.
-SHIFT_ALLOWANCE = 0.2
+SHIFT_ALLOWANCE = 0.15
 #: Grid step of the d-scale votes in ln d.
 SCALE_STEP = 0.0025
 #: Slices of the d-scale range in pass 1 (each ±ln(1 + ε_max)/SCALE_SLICES wide).
@@ -108,7 +112,7 @@ def first_pass(peaks: PeakList, index: SearchIndex, allowed: np.ndarray, *, d_sc
     rows : ndarray, shape (h,), int64
         Entries with votes (at most :data:`PASS1_KEEP`, those with the most), increasing.
     key : ndarray, shape (h,)
-        ``min(U, D) / (D + 1/2)``.
+        ``min(U, D) / (D + PASS1_SOFTENING)``.
     """
     table = index.strong_lines(peaks.radiation.wavelength)
     log_d, tol, reach, strength = observed_windows(peaks, width, d_scale=d_scale)
@@ -134,8 +138,8 @@ def first_pass(peaks: PeakList, index: SearchIndex, allowed: np.ndarray, *, d_sc
     lo_d, hi_d = np.log(d_range[0]) - reach, np.log(d_range[1]) + reach
     ld = np.asarray(table.log_d[hit], dtype=np.float64)
     wt = np.asarray(table.weight[hit], dtype=np.float64)
-    den = np.where((ld >= lo_d) & (ld <= hi_d), wt, 0.0).sum(axis=1)
-    return hit.astype(np.int64), np.minimum(votes[hit], den) / (den + 0.5)
+    den = np.where((ld >= lo_d) & (ld <= hi_d) & (wt >= SORTED_MIN_WEIGHT), wt, 0.0).sum(axis=1)
+    return hit.astype(np.int64), np.minimum(votes[hit], den) / (den + PASS1_SOFTENING)
 
 
 def prefilter(peaks: PeakList, index: SearchIndex, allowed: np.ndarray, *, d_scale: bool, width: WidthModel,
@@ -180,7 +184,8 @@ def scale_votes(peaks: PeakList, index: SearchIndex, rows: np.ndarray, *, width:
     Returns
     -------
     key : ndarray, shape (C,)
-        Weight of strong lines found at the best scale over (D + 1/2) (module docstring).
+        Votes of strong lines found at the best scale over (D + PASS1_SOFTENING), D over all
+        K strong lines in range (module docstring).
     d_scale : ndarray, shape (C,)
         Best ε (0 without d-scale).
     """
@@ -219,4 +224,4 @@ def scale_votes(peaks: PeakList, index: SearchIndex, rows: np.ndarray, *, width:
     # Prefer the smallest |ε| among equal votes.
     best = np.argmax(per_scale - 1e-9 * np.abs(grid)[None, :], axis=1)
     votes = per_scale[np.arange(rows.size), best]
-    return votes / (den2 + 0.5), np.expm1(grid[best])
+    return votes / (den2 + PASS1_SOFTENING), np.expm1(grid[best])

@@ -124,7 +124,7 @@ def test_width_model_recovers_caglioti_like_widths():
 
 def slow_first_pass(peaks, allowed, d_scale):
     from refdb.match.index import SORTED_MIN_WEIGHT
-    from refdb.match.prefilter import SCALE_SLICES
+    from refdb.match.prefilter import PASS1_SOFTENING, SCALE_SLICES
 
     width = width_model(peaks)
     log_d, tol, reach, strength = observed_windows(peaks, width, d_scale=d_scale)
@@ -142,16 +142,16 @@ def slow_first_pass(peaks, allowed, d_scale):
         for ld, w in zip(table.log_d[row], table.weight[row]):
             if not np.isfinite(ld):
                 continue
-            if np.log(d_lo) - reach <= ld <= np.log(d_hi) + reach:
-                den += w
             if w < SORTED_MIN_WEIGHT:
                 continue  # only lines at least this strong vote in pass 1
+            if np.log(d_lo) - reach <= ld <= np.log(d_hi) + reach:
+                den += w
             for i, c in enumerate(centres):
                 for x, t, o in zip(log_d, tol, strength):
                     if abs(ld - (x - c)) <= t + half:
                         u[i] += min(w, o)
         if max(u) > 0:
-            keys[row] = min(max(u), den) / (den + 0.5)
+            keys[row] = min(max(u), den) / (den + PASS1_SOFTENING)
     return keys
 
 
@@ -167,7 +167,7 @@ def test_first_pass_agrees_with_slow_loops(d_scale):
 
 
 def test_scale_votes_agree_with_slow_grid():
-    from refdb.match.prefilter import SCALE_STEP
+    from refdb.match.prefilter import PASS1_SOFTENING, SCALE_STEP
 
     peaks = entry_peaks(ARRAYS, ROW, d_scale=0.01)
     width = width_model(peaks)
@@ -191,7 +191,7 @@ def test_scale_votes_agree_with_slow_grid():
         den = wt[inr].sum()
         # The fast version also counts a pair whose interval falls between grid points at the
         # nearest point, so it may exceed the pure grid count, never fall below it.
-        assert key[i] >= best / (den + 0.5) - 1e-6
+        assert key[i] >= best / (den + PASS1_SOFTENING) - 1e-6
     # The true scale is found within one grid step.
     assert eps[0] == pytest.approx(0.01, abs=SCALE_STEP)
 
