@@ -59,7 +59,7 @@ STRONG_MAX_TWO_THETA = 120.0
 #: sorted table the prefilter's first pass reads; weaker ones cannot earn much there.
 SORTED_MIN_WEIGHT = 0.12
 #: Version of the strong-table files (part of their names; older ones are rebuilt).
-_STRONG_LAYOUT = 4
+_STRONG_LAYOUT = 5
 #: Entries processed at once while building strong tables (bounds the temporary memory).
 _CHUNK_LINES = 4_000_000
 
@@ -174,6 +174,11 @@ class StrongLines:
         The ``log_d`` values of lines with weight ≥ :data:`SORTED_MIN_WEIGHT`, increasing.
     sorted_slot : ndarray, shape (M,), int32
         Flat position (row·K + k) in ``log_d`` of each sorted value.
+    sorted_entry : ndarray, shape (M,), int32
+        Entry row of each sorted value (``sorted_slot // K``), stored so that a window of the
+        sorted table is read as contiguous memory.
+    sorted_weight : ndarray, shape (M,), float32
+        Weight of each sorted value.
     """
 
     wavelength: float
@@ -181,6 +186,8 @@ class StrongLines:
     weight: np.ndarray
     sorted_log_d: np.ndarray
     sorted_slot: np.ndarray
+    sorted_entry: np.ndarray
+    sorted_weight: np.ndarray
 
     @property
     def k(self) -> int:
@@ -478,18 +485,21 @@ def _build_strong(index: SearchIndex, wavelength: float) -> StrongLines:
     flat = log_d.ravel()
     slots = np.flatnonzero(np.isfinite(flat) & (weight.ravel() >= SORTED_MIN_WEIGHT)).astype(np.int32)
     order = np.argsort(flat[slots], kind="stable")
+    slots = slots[order]
     return StrongLines(
         wavelength=wavelength,
         log_d=log_d,
         weight=weight,
-        sorted_log_d=flat[slots][order],
-        sorted_slot=slots[order],
+        sorted_log_d=flat[slots],
+        sorted_slot=slots,
+        sorted_entry=(slots // k).astype(np.int32),
+        sorted_weight=weight.reshape(-1)[slots],
     )
 
 
 def _strong_files(directory: Path, key: str) -> dict[str, Path]:
     return {n: directory / f"strong{_STRONG_LAYOUT}_{key}_{n}.npy"
-            for n in ("log_d", "weight", "sorted_log_d", "sorted_slot")}
+            for n in ("log_d", "weight", "sorted_log_d", "sorted_slot", "sorted_entry", "sorted_weight")}
 
 
 def _save_strong(directory: Path, key: str, table: StrongLines) -> None:

@@ -116,7 +116,6 @@ def first_pass(peaks: PeakList, index: SearchIndex, allowed: np.ndarray, *, d_sc
     """
     table = index.strong_lines(peaks.radiation.wavelength)
     log_d, tol, reach, strength = observed_windows(peaks, width, d_scale=d_scale)
-    flat_w = np.asarray(table.weight).reshape(-1)
     votes = np.zeros(index.n_entries)
     # The d-scale range is cut into slices; an entry's votes are those of its best slice, so
     # its lines must agree with one common scale (to within a slice) to collect them.
@@ -126,10 +125,11 @@ def first_pass(peaks: PeakList, index: SearchIndex, allowed: np.ndarray, *, d_sc
     for centre in np.linspace(-reach + half, reach - half, n_slices):
         a = np.searchsorted(sorted_ld, (log_d - centre - tol - half).astype(sorted_ld.dtype), side="left")
         b = np.searchsorted(sorted_ld, (log_d - centre + tol + half).astype(sorted_ld.dtype), side="right")
-        pos, peak = expand_ranges(a, b - a)
-        slot = np.asarray(table.sorted_slot[pos], dtype=np.int64)
-        vote = np.minimum(flat_w[slot], strength[peak])
-        np.maximum(votes, np.bincount(slot // table.k, weights=vote, minlength=index.n_entries), out=votes)
+        # Windows are contiguous runs of the sorted table: copy them, no gathers.
+        entry = np.concatenate([table.sorted_entry[i:j] for i, j in zip(a, b)])
+        weight = np.concatenate([table.sorted_weight[i:j] for i, j in zip(a, b)])
+        vote = np.minimum(weight, np.repeat(strength.astype(np.float32), b - a))
+        np.maximum(votes, np.bincount(entry, weights=vote, minlength=index.n_entries), out=votes)
     votes[~allowed] = 0.0
     hit = np.flatnonzero(votes > 0)
     if hit.size > PASS1_KEEP:
