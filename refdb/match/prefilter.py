@@ -47,7 +47,7 @@ N_OBSERVED = 14
 #: Added to D in the pass-1 key: an entry with few voting lines is weaker evidence.
 PASS1_SOFTENING = 0.25
 #: Entries passed from the first to the second pass.
-N_PASS2 = 600
+N_PASS2 = 1500
 #: Entries with the most pass-1 votes whose key is computed (the key needs their strong lines).
 PASS1_KEEP = 10 * N_PASS2
 #: Allowance for zero shift plus displacement in the windows, degrees 2θ.
