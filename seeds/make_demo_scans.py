@@ -63,14 +63,14 @@ DEMOS: tuple[DemoScan, ...] = (
         # Iron-rich samples are usually measured with Co radiation: Cu Kα excites Fe K
         # fluorescence and buries the pattern in background (common practice, no source).
         anode="Co",
-        phases={"magnetite": 0.50, "lepidocrocite": 0.25, "goethite": 0.20, "akaganeite": 0.05},
+        phases={"magnetite": 0.48, "lepidocrocite": 0.25, "goethite": 0.20, "akaganeite": 0.07},
         two_theta=(8.0, 100.0, 0.02),
         counts=6000.0,
         background=(260.0, -3.2, 0.018),
         amorphous=(40.0, 12.0, 45.0),
         zero_shift=0.03,
         displacement=-0.05,
-        sizes_nm={"magnetite": 80.0, "lepidocrocite": 25.0, "goethite": 18.0, "akaganeite": 12.0},
+        sizes_nm={"magnetite": 80.0, "lepidocrocite": 30.0, "goethite": 25.0, "akaganeite": 40.0},
         # Lepidocrocite scales lie flat on the holder: texture along b (the layer normal).
         texture={"lepidocrocite": (0.75, (0, 1, 0))},
         story=(
@@ -106,7 +106,7 @@ DEMOS: tuple[DemoScan, ...] = (
         amorphous=(22.0, 9.0, 60.0),
         zero_shift=-0.02,
         displacement=0.04,
-        sizes_nm={"goethite": 20.0},
+        sizes_nm={"goethite": 45.0},
         # Calcite rhombs lie on their {104} cleavage faces.
         texture={"calcite": (0.85, (1, 0, 4))},
         story=(

@@ -133,7 +133,7 @@ def _pct(w: float, u: float) -> str:
     return f"{100 * w:.1f} ± {100 * u:.1f}" if u == u else f"{100 * w:.1f}"
 
 
-def _render(result) -> None:
+def _render(result, *, caution: bool = True) -> None:
     q = result.quantification
     if not result.phases:
         out.print("No phase identified.")
@@ -165,7 +165,8 @@ def _render(result) -> None:
     for n in result.notes:
         warn(n)
     out.print(f"Library stamp {result.library_stamp}.")
-    out.print(CAUTION)
+    if caution:
+        out.print(CAUTION)
 
 
 def batch(
