@@ -33,12 +33,22 @@ def test_every_invented_phase_is_found(demo_run):
 
 
 def test_weight_fractions_near_the_invented_ones(demo_run):
-    # 7 wt % absolute: the demo scans carry texture and size broadening that the default
-    # refinement does not model (lepidocrocite 020 and calcite 104 come out strong), which
-    # moves fractions by a few wt %; a wrong phase would be off by far more.
+    # 3 wt % absolute (the mixture benchmark's goal for the mean error): the scans carry
+    # counting noise, size broadening, texture and an amorphous hump, all refined or
+    # approximated (texture by one March–Dollase factor, size by a width factor); a wrong or
+    # missed phase would be off by far more.
     for o in demo_run.outcomes:
         for name, w in o.scan.answer.items():
-            assert abs(o.found[name] - w) < 0.07, (o.scan.name, name, o.found[name], w)
+            assert abs(o.found[name] - w) < 0.03, (o.scan.name, name, o.found[name], w)
+
+
+def test_texture_is_recognised(demo_run):
+    # The rust scan was simulated with lepidocrocite plates textured along b (March–Dollase
+    # r = 0.75, seeds/make_demo_scans.py); the decomposition should say so and leave no peak.
+    rust = next(o for o in demo_run.outcomes if o.scan.name == "flange-rust")
+    lep = next(p for p in rust.mixture.phases if p.name.lower() == "lepidocrocite")
+    assert "preferred orientation along 0 2 0" in lep.evidence.text or "along 0 1 0" in lep.evidence.text
+    assert len(rust.mixture.unexplained) == 0
 
 
 def test_reports_and_plots_written(demo_run):
