@@ -31,6 +31,20 @@ def open_lib(*, create: bool = False, upgrade: bool = False):
     return open_library(state().get("db"), create=create, upgrade=upgrade)
 
 
+def open_searchable_lib():
+    """Open the library for search or decomposition: it must hold at least one entry."""
+    from refdb.errors import LibraryError
+
+    lib = open_lib()
+    if lib.count() == 0:
+        lib.close()
+        raise LibraryError(
+            f"the library {lib.display} has no entries",
+            "add references with: refdb add cif FOLDER; refdb demo shows a seed library at work",
+        )
+    return lib
+
+
 def _check_kind(kind: str | None) -> str | None:
     if kind is not None and kind not in KINDS:
         raise InputError(f"unknown kind {kind!r}", f"use one of {', '.join(KINDS)}")

@@ -30,7 +30,7 @@ from refdb.cli._common import (
     state,
     warn,
 )
-from refdb.cli.library_cmds import KindOpt, OnlyOpt, TagOpt, WithOpt, WithoutOpt, open_lib
+from refdb.cli.library_cmds import KindOpt, OnlyOpt, TagOpt, WithOpt, WithoutOpt, open_searchable_lib
 from refdb.errors import InputError
 from refdb.report.caution import CAUTION
 
@@ -106,7 +106,7 @@ def unmix(
     scan = load_scan(scan_path, radiation=radiation, fmt=fmt)
     for w in scan.warnings:
         warn(w)
-    with open_lib() as lib:
+    with open_searchable_lib() as lib:
         result = decompose(scan, lib, max_phases=max_phases, quant_method=quant, standard=std, **filters)
     if report is not None:
         from refdb.report.html import write_mixture_html
@@ -197,6 +197,8 @@ def batch(
     from refdb.match.batch import BatchOptions, collect_scans, run_batch, summary_rows
 
     radiation_from_options(anode, wavelength)  # check the options before starting workers
+    with open_searchable_lib():  # and that there is something to search
+        pass
     paths = collect_scans(inputs)
     options = BatchOptions(
         library_url=state().get("db"), mode=mode.strip().lower(), anode=anode, wavelength=wavelength, fmt=fmt,

@@ -18,7 +18,7 @@ import typer
 from rich.table import Table
 
 from refdb.cli._common import AnodeOpt, JsonOpt, WavelengthOpt, emit_json, handle_errors, out, warn
-from refdb.cli.library_cmds import KindOpt, OnlyOpt, TagOpt, WithOpt, WithoutOpt, open_lib
+from refdb.cli.library_cmds import KindOpt, OnlyOpt, TagOpt, WithOpt, WithoutOpt, open_searchable_lib
 from refdb.cli.scan_cmds import FormatOpt, PeakTableOpt, PositionsOpt, ScanArg, measurement_from_options
 from refdb.errors import InputError
 from refdb.report.caution import CAUTION_SHORT
@@ -74,6 +74,8 @@ def search_command(
         from refdb.report.search_plot import check_plot_path
 
         check_plot_path(plot)
+    with open_searchable_lib():  # a missing or empty library is reported before the slow work
+        pass
     data = measurement_from_options(scan_path, anode, wavelength, key, peak_table, positions)
     scan, background = None, None
     if isinstance(data, Scan):
@@ -93,7 +95,7 @@ def search_command(
     from refdb.match.index import load_index
     from refdb.match.search import search
 
-    with open_lib() as lib:
+    with open_searchable_lib() as lib:
         index = load_index(lib)
         result = search(
             peaks, index, scan=scan, background=background, elements_required=filters.elements_required,

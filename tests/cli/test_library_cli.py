@@ -154,3 +154,13 @@ def test_read_only_open_gives_one_line(filled):
     assert r.exit_code == 1 and "Traceback" not in r.stderr
     assert "read-only" in r.stderr
     assert run("list", "--json", db=url).exit_code == 0  # reading still works
+
+
+@pytest.mark.parametrize("command", ["search", "unmix", "batch"])
+def test_empty_library_is_refused_for_matching(tmp_path, command):
+    db = str(tmp_path / "empty.sqlite")
+    run("init", db=db)
+    scan = tmp_path / "s.xy"
+    scan.write_text("# anode: Cu\n" + "".join(f"{10 + 0.02 * i:.2f} {100 + (i % 7)}\n" for i in range(500)))
+    r = run(command, str(scan), db=db)
+    assert r.exit_code == 1 and "has no entries" in r.stderr and "refdb add cif" in r.stderr
