@@ -372,6 +372,9 @@ def add_measured(
     source: Annotated[str, typer.Option("--source", help="Where it was measured (lab, sample id).")] = "in-house",
     anode: Annotated[str | None, typer.Option("--anode", help="Anode the peaks were measured with (Cu, Co, …).")] = None,
     wavelength: Annotated[float | None, typer.Option("--wavelength", help="Wavelength in Å instead of an anode.")] = None,
+    positions: Annotated[
+        str | None, typer.Option("--positions", help="What the first column holds: d or two_theta (else from a header line).")
+    ] = None,
     rir: Annotated[float | None, typer.Option("--rir", help="Measured I/Ic (corundum = 1), if known.")] = None,
     licence: Annotated[str | None, typer.Option("--licence", help="Licence of the data.")] = None,
     tag_: Annotated[list[str] | None, typer.Option("--tag", help="Tag (repeatable).")] = None,
@@ -385,7 +388,7 @@ def add_measured(
     if anode is None and wavelength is None:
         raise InputError("say which radiation the peaks were measured with", "add --anode Cu or --wavelength 1.5406")
     radiation = radiation_for(anode, wavelength=wavelength)
-    peaks = load_peak_table(peak_file, radiation=radiation)
+    peaks = load_peak_table(peak_file, radiation=radiation, positions=positions)
     data = measured_reference(
         peaks.d, peaks.relative_intensity, wavelength=peaks.radiation.wavelength, name=name,
         formula=formula, source=source, source_id=peak_file.stem, file_name=peak_file.name,
