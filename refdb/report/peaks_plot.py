@@ -12,6 +12,22 @@ from refdb.scan.types import Scan
 
 #: File types the plot can be written as.
 PLOT_SUFFIXES = (".png", ".svg", ".pdf")
+
+
+def check_plot_path(path: str | Path) -> Path:
+    """The plot file as a Path, after checking its suffix and folder (shared by the plots).
+
+    Raises
+    ------
+    InputError
+        Unsupported suffix or a folder that does not exist.
+    """
+    out = Path(path)
+    if out.suffix.lower() not in PLOT_SUFFIXES:
+        raise InputError(f"cannot draw to {out.name}", f"use a file name ending in {', '.join(PLOT_SUFFIXES)}")
+    if not out.parent.exists():
+        raise InputError(f"folder {out.parent} does not exist")
+    return out
 #: At most this many peaks get a text label (the strongest); all get a marker.
 MAX_LABELS = 40
 
@@ -43,11 +59,7 @@ def plot_peak_search(scan: Scan, result: PeakSearch, path: str | Path, *, title:
     InputError
         Unsupported suffix or a folder that does not exist.
     """
-    out = Path(path)
-    if out.suffix.lower() not in PLOT_SUFFIXES:
-        raise InputError(f"cannot draw to {out.name}", f"use a file name ending in {', '.join(PLOT_SUFFIXES)}")
-    if not out.parent.exists():
-        raise InputError(f"folder {out.parent} does not exist")
+    out = check_plot_path(path)
     import matplotlib
 
     matplotlib.use("Agg")

@@ -8,26 +8,11 @@ import numpy as np
 
 from refdb.errors import InputError
 from refdb.report.caution import CAUTION_SHORT
-from refdb.report.peaks_plot import PLOT_SUFFIXES
+from refdb.report.peaks_plot import PLOT_SUFFIXES, check_plot_path  # noqa: F401 (re-exported)
 from refdb.scan.types import PeakList, Scan
+
 #: Colour-blind-safe qualitative colours (Okabe & Ito 2008, "Color Universal Design").
 COLOURS = ("#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9", "#F0E442", "#000000")
-
-
-def check_plot_path(path: str | Path) -> Path:
-    """The plot file as a Path, after checking its suffix and folder.
-
-    Raises
-    ------
-    InputError
-        Unsupported suffix or a folder that does not exist.
-    """
-    out = Path(path)
-    if out.suffix.lower() not in PLOT_SUFFIXES:
-        raise InputError(f"cannot draw to {out.name}", f"use a file name ending in {', '.join(PLOT_SUFFIXES)}")
-    if not out.parent.exists():
-        raise InputError(f"folder {out.parent} does not exist")
-    return out
 
 
 def plot_search(scan: Scan, peaks: PeakList, result, path: str | Path, *, count: int = 3,
