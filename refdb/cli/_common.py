@@ -7,12 +7,15 @@ import json
 import sys
 from collections.abc import Callable
 from pathlib import Path
-from typing import Annotated, Any, TypeVar
+from typing import TYPE_CHECKING, Annotated, Any, TypeVar
 
 import typer
 from rich.console import Console
 
 from refdb.errors import RefdbError
+
+if TYPE_CHECKING:
+    from refdb.radiation import Radiation
 
 F = TypeVar("F", bound=Callable[..., Any])
 
@@ -123,7 +126,7 @@ def finite_or_none(x: Any) -> Any:
 
 def radiation_from_options(
     anode: str | None, wavelength: float | None, *, required: bool = False
-) -> "Radiation | None":
+) -> Radiation | None:
     """Turn ``--anode`` / ``--wavelength`` into a :class:`~refdb.radiation.Radiation`.
 
     Returns None when neither is given and ``required`` is False.

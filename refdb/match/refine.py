@@ -39,7 +39,7 @@ from refdb.errors import InputError
 from refdb.geometry import peak_shift
 from refdb.match._phase_lines import PhaseSticks, phase_sticks
 from refdb.profiles import caglioti_fwhm
-from refdb.radiation import Radiation, two_theta_from_d
+from refdb.radiation import Radiation
 from refdb.records import ReferenceData
 from refdb.scan.types import Scan
 from refdb.structure.pattern import sum_profiles

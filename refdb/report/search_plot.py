@@ -6,9 +6,8 @@ from pathlib import Path
 
 import numpy as np
 
-from refdb.errors import InputError
 from refdb.report.caution import CAUTION_SHORT
-from refdb.report.peaks_plot import PLOT_SUFFIXES, check_plot_path  # noqa: F401 (re-exported)
+from refdb.report.peaks_plot import check_plot_path
 from refdb.scan.types import PeakList, Scan
 
 #: Colour-blind-safe qualitative colours (Okabe & Ito 2008, "Color Universal Design").
