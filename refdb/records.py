@@ -120,12 +120,18 @@ class ReferenceEntry(ReferenceData):
     @property
     def display_source_id(self) -> str:
         """The database code, else the imported file's stem, else ``#id``."""
-        if self.source_id:
-            return self.source_id
-        if self.file_name:
-            stem = self.file_name.rsplit("/", 1)[-1]
-            return stem.rsplit(".", 1)[0] if "." in stem else stem
-        return f"#{self.id}"
+        return display_source_id(self.source_id, self.file_name, self.id)
+
+
+def display_source_id(source_id: str | None, file_name: str | None, entry_id: int) -> str:
+    """The ``source_id`` that reports and ``--json`` show for an entry: the database code,
+    else the imported file's stem, else ``#id``."""
+    if source_id:
+        return source_id
+    if file_name:
+        stem = file_name.replace("\\", "/").rsplit("/", 1)[-1]
+        return stem.rsplit(".", 1)[0] if "." in stem else stem
+    return f"#{entry_id}"
 
 
 @dataclass(frozen=True, eq=False)

@@ -31,7 +31,14 @@ from refdb.library.engine import (
     upgrade_schema,
 )
 from refdb.library.models import Entry, EntryElement, EntryTag, Reflection
-from refdb.records import KINDS, LibraryArrays, PatternLines, ReferenceData, ReferenceEntry
+from refdb.records import (
+    KINDS,
+    LibraryArrays,
+    PatternLines,
+    ReferenceData,
+    ReferenceEntry,
+    display_source_id,
+)
 
 
 @dataclass(frozen=True)
@@ -372,16 +379,11 @@ class Library:
         It changes whenever an entry is added, changed (tags, notes) or removed; search caches
         and reports carry it so that a result can be tied to the library it came from.
         """
-        h = hashlib.sha256()
         try:
             with self._session() as s:
-                for eid, digest, rev in s.execute(
-                    select(Entry.id, Entry.content_hash, Entry.revision).order_by(Entry.id)
-                ):
-                    h.update(f"{eid}:{digest}:{rev}\n".encode())
+                return _stamp_in(s)
         except SQLAlchemyError as exc:
             raise self._guard(exc) from None
-        return h.hexdigest()[:16]
 
     def stats(self) -> LibraryStats:
         from refdb.library.engine import current_revision
@@ -397,6 +399,7 @@ class Library:
                 lic = Counter()
                 for (text,) in s.execute(select(Entry.licence)):
                     lic[_licence_label(text)] += 1
+                stamp = _stamp_in(s)
         except SQLAlchemyError as exc:
             raise self._guard(exc) from None
         return LibraryStats(
@@ -405,15 +408,22 @@ class Library:
             by_kind=dict(sorted(by_kind.items())),
             by_source=dict(sorted(by_source.items(), key=lambda kv: (-kv[1], kv[0]))),
             by_licence=dict(sorted(lic.items(), key=lambda kv: (-kv[1], kv[0]))),
-            stamp=self.stamp(),
+            stamp=stamp,
             schema_revision=current_revision(self.engine) or "",
             location=self.display,
         )
 
     def arrays(self) -> LibraryArrays:
-        """The whole library as flat numpy arrays (the input of the search index)."""
+        """The whole library as flat numpy arrays (the input of the search index).
+
+        Everything, the stamp included, is read in one snapshot (one SQLite read transaction
+        under WAL; REPEATABLE READ on PostgreSQL), so a concurrent import can never leave the
+        arrays labelled with a stamp that does not describe them.
+        """
         try:
             with self._session() as s:
+                if self.engine.dialect.name == "postgresql":
+                    s.connection(execution_options={"isolation_level": "REPEATABLE READ"})
                 entries = s.execute(
                     select(
                         Entry.id, Entry.kind, Entry.wavelength, Entry.name, Entry.formula,
@@ -441,28 +451,23 @@ class Library:
                         Reflection.f2, Reflection.intensity,
                     ).order_by(Reflection.entry_id, Reflection.seq)
                 ).all()
+                stamp = _stamp_in(s)
         except SQLAlchemyError as exc:
             raise self._guard(exc) from None
-        stamp = self.stamp()
         ids = np.array([e.id for e in entries], dtype=np.int64)
-        row_of = {int(e): i for i, e in enumerate(ids)}
-        if refl:
-            r_entry = np.fromiter((row_of[r[0]] for r in refl), dtype=np.int32, count=len(refl))
-            r_d = np.fromiter((r[1] for r in refl), dtype=np.float64, count=len(refl))
-            r_m = np.fromiter((r[2] or 0 for r in refl), dtype=np.int32, count=len(refl))
-            r_f2 = np.fromiter((np.nan if r[3] is None else r[3] for r in refl), dtype=np.float64, count=len(refl))
-            r_i = np.fromiter((np.nan if r[4] is None else r[4] for r in refl), dtype=np.float64, count=len(refl))
-        else:
-            r_entry = np.zeros(0, np.int32)
-            r_d = r_f2 = r_i = np.zeros(0)
-            r_m = np.zeros(0, np.int32)
+        # Columns of the reflection rows; NULL becomes NaN in float columns.
+        cols = [np.array(c, dtype=float) for c in zip(*refl, strict=True)] if refl else [np.zeros(0)] * 5
+        r_entry = np.searchsorted(ids, cols[0]).astype(np.int32)  # rows are ordered by entry id
+        r_d = cols[1]
+        r_m = np.nan_to_num(cols[2], nan=0.0).astype(np.int32)
+        r_f2, r_i = cols[3], cols[4]
         start = np.searchsorted(r_entry, np.arange(len(ids) + 1)).astype(np.int64)
         meta = tuple(
             {
                 "name": e.name,
                 "formula": e.formula,
                 "formula_reduced": e.formula_reduced,
-                "source_id": e.source_id or _stem(e.file_name) or f"#{e.id}",
+                "source_id": display_source_id(e.source_id, e.file_name, e.id),
                 "space_group": e.space_group,
                 "sg_number": e.sg_number,
                 "elements": tuple(elements.get(e.id, ())),
@@ -492,15 +497,16 @@ class Library:
 
 
 # -- conversions ---------------------------------------------------------------------------
+def _stamp_in(s: Session) -> str:
+    """The library stamp (see :meth:`Library.stamp`) as seen by session ``s``."""
+    h = hashlib.sha256()
+    for eid, digest, rev in s.execute(select(Entry.id, Entry.content_hash, Entry.revision).order_by(Entry.id)):
+        h.update(f"{eid}:{digest}:{rev}\n".encode())
+    return h.hexdigest()[:16]
+
+
 def _now() -> datetime:
     return datetime.now(UTC).replace(tzinfo=None)
-
-
-def _stem(name: str | None) -> str | None:
-    if not name:
-        return None
-    base = name.replace("\\", "/").rsplit("/", 1)[-1]
-    return base.rsplit(".", 1)[0] if "." in base else base
 
 
 def _clean_tag(tag: str) -> str:
