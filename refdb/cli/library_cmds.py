@@ -53,24 +53,9 @@ def _check_kind(kind: str | None) -> str | None:
 
 def init() -> None:
     """Create the library, or upgrade an older one to this version's schema."""
-    from refdb.library.engine import current_revision, head_revision, resolve_location
-
-    loc = resolve_location(state().get("db"))
-    existed = loc.path is None or loc.path.exists()
-    before = None
-    if existed and loc.path is not None:
-        from refdb.library.engine import make_engine
-
-        eng = make_engine(loc)
-        try:
-            before = current_revision(eng)
-        except Exception:
-            before = None
-        finally:
-            eng.dispose()
     with open_lib(create=True, upgrade=True) as lib:
         n = lib.count()
-        head = head_revision()
+        before, head = lib.schema_change or (None, "")
         if before is None:
             err.print(f"Created library at {lib.display} (schema {head}).")
         elif before != head:

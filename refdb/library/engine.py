@@ -6,6 +6,7 @@ timeout, so several processes can read while one writes. PostgreSQL is used as g
 
 from __future__ import annotations
 
+import functools
 import hashlib
 import os
 from dataclasses import dataclass
@@ -140,13 +141,19 @@ def _alembic_config() -> Config:
     return cfg
 
 
+@functools.lru_cache(maxsize=1)
+def _script_directory() -> ScriptDirectory:
+    # Reading the migration scripts is file-system work; every command's schema check needs it.
+    return ScriptDirectory.from_config(_alembic_config())
+
+
 def head_revision() -> str:
     """The schema revision this version of refdb writes."""
-    return ScriptDirectory.from_config(_alembic_config()).get_current_head()
+    return _script_directory().get_current_head()
 
 
 def known_revisions() -> set[str]:
-    return {s.revision for s in ScriptDirectory.from_config(_alembic_config()).walk_revisions()}
+    return {s.revision for s in _script_directory().walk_revisions()}
 
 
 def current_revision(engine: Engine) -> str | None:
@@ -203,7 +210,7 @@ def check_schema(engine: Engine, location: Location) -> None:
         )
     raise SchemaError(
         f"the library at {location.display} has an older schema (revision {rev}; this refdb uses {head})",
-        "upgrade it with: refdb init (back up the file first)",
+        "back up the file, then upgrade it with: refdb init",
     )
 
 

@@ -118,7 +118,7 @@ def open_library(
     lib = Library(engine, location)
     try:
         if create or upgrade:
-            upgrade_schema(engine)
+            lib.schema_change = upgrade_schema(engine)
         check_schema(engine, location)
     except SQLAlchemyError as exc:
         engine.dispose()
@@ -135,6 +135,9 @@ class Library:
     def __init__(self, engine: Engine, location: Location) -> None:
         self.engine = engine
         self.location = location
+        #: (revision before, revision after) when opening created or upgraded the schema;
+        #: before is None for a new library. None when the schema was only checked.
+        self.schema_change: tuple[str | None, str] | None = None
 
     # -- context management -------------------------------------------------------------
     def __enter__(self) -> Library:
