@@ -170,23 +170,27 @@ def show(
 
 
 def _print_lines(e, n: int) -> None:
+    """The ``n`` strongest lines of an entry: computed entries for Cu Kα1, measured ones as
+    measured."""
     import numpy as np
 
-    from refdb.radiation import radiation_for
-
     L = e.lines
+    tt = None
     if e.kind == "computed" and L.f2 is not None:
-        from refdb.geometry import lorentz_polarisation
+        from refdb.radiation import radiation_for
+        from refdb.structure import stick_pattern
 
-        rad = radiation_for("Cu", alpha2=False)
-        tt = rad.two_theta(L.d)
-        raw = np.where(np.isfinite(tt), L.f2 * (L.multiplicity if L.multiplicity is not None else 1) * lorentz_polarisation(np.nan_to_num(tt, nan=90.0)), 0.0)
+        sticks = stick_pattern(L, radiation_for("Cu", alpha2=False), two_theta_range=(0.0, 180.0))
+        # Lines too short in d for Cu (d < λ/2) cannot be observed with it: intensity 0, no 2θ.
+        rel = np.zeros(len(L))
+        rel[sticks.line_index] = sticks.intensity
+        tt = np.full(len(L), np.nan)
+        tt[sticks.line_index] = sticks.two_theta
         label = "I (Cu Kα1, computed)"
     else:
         raw = L.intensity if L.intensity is not None else np.zeros(len(L))
-        tt = None
+        rel = raw * (100.0 / raw.max()) if raw.size and raw.max() > 0 else raw
         label = f"I (measured, λ = {e.wavelength:.4f} Å)" if e.wavelength else "I"
-    rel = raw * (100.0 / raw.max()) if raw.size and raw.max() > 0 else raw
     order = np.argsort(-rel, kind="stable")[:n]
     order = order[np.argsort(-L.d[order], kind="stable")]
     table = Table(title=f"{min(n, len(L))} strongest of {len(L)} lines", title_justify="left")
