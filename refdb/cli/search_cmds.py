@@ -74,28 +74,13 @@ def search_command(
         from refdb.report.search_plot import check_plot_path
 
         check_plot_path(plot)
-    with open_searchable_lib():  # a missing or empty library is reported before the slow work
-        pass
-    data = measurement_from_options(scan_path, anode, wavelength, key, peak_table, positions)
-    scan, background = None, None
-    if isinstance(data, Scan):
-        for note in data.warnings:
-            warn(note)
-        found = find_peaks(data, min_significance=min_significance)
-        for note in found.warnings[len(data.warnings):]:
-            warn(note)
-        peaks, scan, background = found.peaks, data, found.background
-    else:
-        peaks = data
-        if plot is not None:
-            raise InputError("--plot needs a scan, not a peak table")
-    if len(peaks) == 0:
-        raise InputError("no peaks were found in the scan", "check the file, or lower --min-significance")
-
     from refdb.match.index import load_index
     from refdb.match.search import search
 
-    with open_searchable_lib() as lib:
+    with open_searchable_lib() as lib:  # a missing or empty library is reported before the slow work
+        peaks, scan, background = _observed_peaks(
+            scan_path, anode, wavelength, key, peak_table, positions, min_significance, plot
+        )
         index = load_index(lib)
         result = search(
             peaks, index, scan=scan, background=background, elements_required=filters.elements_required,
@@ -116,6 +101,26 @@ def search_command(
         warn(note)
     out.print(_table(result, peaks.source))
     out.print(CAUTION_SHORT)
+
+
+def _observed_peaks(scan_path, anode, wavelength, key, peak_table, positions, min_significance, plot):
+    """(peaks, scan or None, background or None) from a scan file or a peak table."""
+    data = measurement_from_options(scan_path, anode, wavelength, key, peak_table, positions)
+    scan, background = None, None
+    if isinstance(data, Scan):
+        for note in data.warnings:
+            warn(note)
+        found = find_peaks(data, min_significance=min_significance)
+        for note in found.warnings[len(data.warnings):]:
+            warn(note)
+        peaks, scan, background = found.peaks, data, found.background
+    else:
+        peaks = data
+        if plot is not None:
+            raise InputError("--plot needs a scan, not a peak table")
+    if len(peaks) == 0:
+        raise InputError("no peaks were found in the scan", "check the file, or lower --min-significance")
+    return peaks, scan, background
 
 
 def _table(result, source: str) -> Table:

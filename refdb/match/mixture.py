@@ -439,6 +439,7 @@ def _try_texture(ctx, peaks, refs, starts, evidence, fit, std_index, *, threshol
     the same information-criterion threshold (here ``max(ln n, min_delta_chi2)``); otherwise
     the fit is kept as it was. At most :data:`MAX_TEXTURED` phases are textured.
     """
+    from refdb.profiles import caglioti_fwhm
     from refdb.structure import stick_pattern
 
     tried: set[int] = set()
@@ -448,7 +449,7 @@ def _try_texture(ctx, peaks, refs, starts, evidence, fit, std_index, *, threshol
             break
         k = int(np.argmax(left.height))
         tt = float(left.two_theta[k])
-        width = float(np.interp(tt, fit.two_theta, _fwhm_curve(ctx, fit.two_theta)))
+        width = float(caglioti_fwhm(tt, *ctx.caglioti))
         j = int(np.clip(np.searchsorted(fit.two_theta, tt), 0, len(fit.two_theta) - 1))
         share = fit.phase_profiles[:, j]
         order = [int(p) for p in np.argsort(-share) if p != std_index and p not in tried and share[p] > 0]
@@ -484,13 +485,6 @@ def _try_texture(ctx, peaks, refs, starts, evidence, fit, std_index, *, threshol
         )
         fit, starts = trial, trial_starts
     return fit, starts, evidence
-
-
-def _fwhm_curve(ctx, two_theta: np.ndarray) -> np.ndarray:
-    from refdb.profiles import caglioti_fwhm
-
-    u, v, w = ctx.caglioti
-    return caglioti_fwhm(two_theta, u, v, w)
 
 
 @dataclass
