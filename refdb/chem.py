@@ -129,6 +129,12 @@ def elements_of(formula: str) -> tuple[str, ...]:
     return tuple(sorted(parse_formula(formula)))
 
 
+def split_tokens(text: str | None) -> list[str]:
+    """``"Fe,O  Cl;S"`` → ``["Fe", "O", "Cl", "S"]``: a list typed on a command line, split on
+    commas, semicolons and blanks, not yet checked."""
+    return [tok for tok in re.split(r"[\s,;]+", (text or "").strip()) if tok]
+
+
 def split_element_list(text: str | None) -> tuple[str, ...]:
     """``"Fe,O  Cl"`` → ``("Cl", "Fe", "O")``; each must be an element symbol.
 
@@ -137,12 +143,8 @@ def split_element_list(text: str | None) -> tuple[str, ...]:
     InputError
         A token that is not an element symbol (symbols are case-sensitive: ``Co`` vs ``CO``).
     """
-    if not text:
-        return ()
     out = []
-    for tok in re.split(r"[\s,;]+", text.strip()):
-        if not tok:
-            continue
+    for tok in split_tokens(text):
         sym = tok[:1].upper() + tok[1:].lower()
         if not is_element(sym):
             raise InputError(f"{tok!r} is not an element symbol", "give symbols like Fe,O,Cl")

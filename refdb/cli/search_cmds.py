@@ -20,13 +20,10 @@ from rich.table import Table
 from refdb.cli._common import AnodeOpt, JsonOpt, WavelengthOpt, emit_json, handle_errors, out, warn
 from refdb.cli.library_cmds import KindOpt, OnlyOpt, TagOpt, WithOpt, WithoutOpt, open_searchable_lib
 from refdb.cli.scan_cmds import FormatOpt, PeakTableOpt, PositionsOpt, ScanArg, measurement_from_options
+from refdb.chem import split_tokens
 from refdb.errors import InputError
 from refdb.report.caution import CAUTION_SHORT
 from refdb.scan import SCAN_FORMATS, Scan, find_peaks
-
-
-def _elements(text: str | None) -> list[str]:
-    return [t for t in (text or "").replace(";", ",").replace(" ", ",").split(",") if t.strip()]
 
 
 def search_command(
@@ -66,9 +63,9 @@ def search_command(
 
     # Check options before the slow work: filters, plot file.
     filters = make_filters(
-        elements_required=_elements(with_),
-        elements_allowed=_elements(only_from) if only_from is not None else None,
-        elements_excluded=_elements(without), tags=tag or (), kind=kind,
+        elements_required=split_tokens(with_),
+        elements_allowed=split_tokens(only_from) if only_from is not None else None,
+        elements_excluded=split_tokens(without), tags=tag or (), kind=kind,
     )
     if plot is not None:
         from refdb.report.search_plot import check_plot_path
