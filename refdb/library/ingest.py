@@ -110,18 +110,22 @@ def import_cifs(
     done = 0
 
     # Files already in the library are recognised by their text alone: no computation.
-    todo: list[Path] = []
+    digests: dict[Path, str] = {}
     for f in files:
         text = _read_text(f)
         if text is not None:
-            existing = library.find_hash(structure_hash(text))
-            if existing is not None:
-                present.append((str(f), existing))
-                done += 1
-                if progress:
-                    progress(done, total, f.name)
-                continue
-        todo.append(f)
+            digests[f] = structure_hash(text)
+    known = library.find_hashes(digests.values())
+    todo: list[Path] = []
+    for f in files:
+        existing = known.get(digests.get(f, ""))
+        if existing is None:
+            todo.append(f)
+            continue
+        present.append((str(f), existing))
+        done += 1
+        if progress:
+            progress(done, total, f.name)
 
     def record(f: Path, result: ReferenceData | str) -> None:
         nonlocal done
