@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import time
+from dataclasses import replace
 from pathlib import Path
 from typing import Annotated
 
@@ -24,8 +25,8 @@ def demo(
     from a coastal site. The scans were simulated by refdb from the seed structures; the
     composition used for each is in its header, and the demo compares its findings with it.
     """
-    from refdb.cli.mixture_cmds import _render
-    from refdb.cli.search_cmds import _table
+    from refdb.cli.mixture_cmds import render_mixture
+    from refdb.cli.search_cmds import candidates_table
     from refdb.demo import run_demo
     from refdb.report.caution import CAUTION
 
@@ -65,10 +66,8 @@ def demo(
     )
     for o in run.outcomes:
         out.rule(f"[bold]{o.scan.name}[/]: {o.scan.title}")
-        from dataclasses import replace
-
-        out.print(_table(replace(o.search, candidates=o.search.candidates[:top]), o.scan.path.name))
-        _render(o.mixture, caution=False)
+        out.print(candidates_table(replace(o.search, candidates=o.search.candidates[:top]), o.scan.path.name))
+        render_mixture(o.mixture, caution=False)
         answer = ", ".join(f"{k} {100 * v:.0f} %" for k, v in o.scan.answer.items())
         verdict = "all invented phases found" if not o.missed else f"not found: {', '.join(o.missed)}"
         if o.extra:

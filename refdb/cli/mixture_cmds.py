@@ -124,7 +124,7 @@ def unmix(
     if as_json:
         emit_json(result.as_dict())
         return
-    _render(result)
+    render_mixture(result)
 
 
 def _pct(w: float, u: float) -> str:
@@ -133,7 +133,7 @@ def _pct(w: float, u: float) -> str:
     return f"{100 * w:.1f} ± {100 * u:.1f}" if u == u else f"{100 * w:.1f}"
 
 
-def _render(result, *, caution: bool = True) -> None:
+def render_mixture(result, *, caution: bool = True) -> None:
     q = result.quantification
     if not result.phases:
         out.print("No phase identified.")

@@ -96,7 +96,7 @@ def search_command(
         return
     for note in result.notes:
         warn(note)
-    out.print(_table(result, peaks.source))
+    out.print(candidates_table(result, peaks.source))
     out.print(CAUTION_SHORT)
 
 
@@ -120,7 +120,7 @@ def _observed_peaks(scan_path, anode, wavelength, key, peak_table, positions, mi
     return peaks, scan, background
 
 
-def _table(result, source: str) -> Table:
+def candidates_table(result, source: str) -> Table:
     title = (
         f"Candidates for {source} — {result.n_peaks} peaks, {result.radiation.describe()}, "
         f"{result.n_considered} of {result.n_entries} entries considered"
