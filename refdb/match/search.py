@@ -13,7 +13,9 @@ Stages (each in its own module):
    ``score = S₁^(1−λ) · (100·max(R, 0))^λ`` with λ = :data:`PROFILE_WEIGHT`, S₁ the
    peak-list score and R the profile correlation; they are ranked by it ahead of the
    unchecked candidates, which keep S₁.
-5. Equivalent entries (same reduced formula, same space group, cells within 1 % — or volumes
+5. Equivalent entries (same reduced formula, same space group, cell lengths within the
+   d-scale range :data:`D_SCALE_MAX` (2 %, which the figure of merit cannot tell apart: the
+   same phase measured at 5 K and at room temperature) and angles within 1° — or volumes
    within 3 % allowing for a different cell choice of 1–4 times the volume) are folded into
    the best-ranked one's ``equivalents``.
 
@@ -385,7 +387,7 @@ def _phase_key(index: SearchIndex, row: int) -> tuple[str, str]:
 def _same_cell(index: SearchIndex, a: int, b: int) -> bool:
     ca, cb = np.asarray(index.cell[a], dtype=float), np.asarray(index.cell[b], dtype=float)
     if np.all(np.isfinite(ca)) and np.all(np.isfinite(cb)):
-        if np.all(np.abs(ca[:3] / cb[:3] - 1.0) <= 0.01) and np.all(np.abs(ca[3:] - cb[3:]) <= 1.0):
+        if np.all(np.abs(ca[:3] / cb[:3] - 1.0) <= D_SCALE_MAX) and np.all(np.abs(ca[3:] - cb[3:]) <= 1.0):
             return True
     va, vb = float(index.volume[a]), float(index.volume[b])
     if np.isfinite(va) and np.isfinite(vb) and va > 0 and vb > 0:

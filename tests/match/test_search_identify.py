@@ -111,3 +111,21 @@ def test_simulated_scan_is_identified(shared_index, cod, shift, disp, scale):
     # 2θ = 40° is worth 0.15 % in d, and z, s and ε share the work).
     assert top.d_scale == pytest.approx(scale - 1.0, abs=0.002)
     assert top.score > 70
+
+
+def test_same_phase_at_two_temperatures_is_one_phase(tmp_path):
+    """bcc sodium at 5 K (COD 9008544, a = 4.225 Å) and at 293 K (COD 9008545, a = 4.2906 Å),
+    1.6 % apart (cells from the two CIFs) — inside the ±2 % d-scale the search fits, so one
+    phase; bcc potassium (COD 9008540) is another phase."""
+    if not (STRUCTURES / "MANIFEST.tsv").is_file():
+        pytest.skip("the shared structure set (../shared/data/structures) is not beside this checkout")
+    from refdb.library import open_library
+    from refdb.match.index import load_index
+    from refdb.structure import reference_from_cif
+
+    lib = open_library(str(tmp_path / "na.sqlite"), create=True)
+    ids = [lib.add(reference_from_cif(STRUCTURES / f"{c}.cif")).entry_id for c in ("9008544", "9008545", "9008540")]
+    index = load_index(lib)
+    lib.close()
+    assert _same_phase(index, ids[0], ids[1])
+    assert not _same_phase(index, ids[0], ids[2])
