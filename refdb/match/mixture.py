@@ -41,9 +41,19 @@ A phase is accepted only when both hold:
   rejected. At least :data:`MIN_OWN_LINES` of the present lines must be its *own*: lines
   where it gives at least :data:`OWN_LINE_SHARE` of the calculated counts, so that its
   evidence does not rest only on peaks that other phases also explain (a high-symmetry
-  phase with few lines can otherwise hide in the lines of others). So a phase absent from
-  the library leaves its peaks unexplained rather than being forced onto an entry that
-  shares a few lines with it.
+  phase with few lines can otherwise hide in the lines of others). At least
+  :data:`MIN_RESOLVED_LINES` present line must lie apart from every line that another
+  identified phase draws. Lines are counted once per reflection: the Kα2 (or Kβ) maximum of a
+  stronger line is not a line of its own.
+* **Not a patch on another phase's lattice.** When every present line of the phase falls on
+  a reflection (however weak) of one other identified phase, and chance is an unlikely
+  explanation given how dense that phase's reflections are, the phase is rejected
+  (:func:`_lattice_objection`): it only adds intensity where the other phase's intensities
+  are wrong — the signature of an isostructural stand-in for a phase missing from the library.
+
+So a phase absent from the library leaves its peaks unexplained rather than being forced onto
+an entry that shares lines with it. The same tests are repeated on the final fit (after the
+optional texture step), weakest phase first.
 
 References: Hill & Howard (1987) J. Appl. Cryst. 20, 467 (weight fractions); Chung (1974)
 J. Appl. Cryst. 7, 519 (reference intensity ratios); Golub & Pereyra (1973) SIAM J. Numer.
@@ -72,6 +82,7 @@ from refdb.match.refine import (
     refine_mixture,
     snip_background,
 )
+from refdb.radiation import Radiation
 from refdb.records import ReferenceEntry
 from refdb.report.caution import CAUTION
 from refdb.scan.types import PeakList, Scan
@@ -92,6 +103,16 @@ OWN_LINE_SHARE = 0.5
 #: Requiring one when only two lines stand above 3σ found one more minor phase in 72 of the
 #: benchmark but tripled the false phases in scans without an absent phase (0.024 → 0.073).
 MIN_OWN_LINES = 2
+#: Present lines a phase needs that lie apart (> ½ FWHM) from every line another identified
+#: phase draws 3σ above the noise. A phase whose lines all coincide with another's is evidenced
+#: by intensity alone — what an isostructural stand-in for a phase missing from the library
+#: leaves behind (a bcc metal on a spinel's or a rock salt's even lines).
+MIN_RESOLVED_LINES = 1
+#: Largest chance probability (module docstring of :func:`_lattice_objection`) of one phase's
+#: reflections covering all present lines of another that still counts as chance.
+COINCIDENCE_CHANCE = 0.01
+#: Half-width (degrees 2θ) of the window in which a phase's reflection density is counted.
+DENSITY_HALF_WINDOW = 2.0
 #: A residual peak on an identified line must exceed this fraction of the line's height.
 MISFIT_FRACTION = 0.10
 #: Standard deviations a residual peak needs to be reported as unexplained.
@@ -378,7 +399,7 @@ def decompose(
             best = None
             for c, ref, st in group:
                 trial_fit = ctx.refine(refs + [ref], _carry(fit, starts) + [st])
-                verdict = ctx.judge(trial_fit, len(refs), chi2_now)
+                verdict = ctx.judge(trial_fit, refs + [ref], len(refs), chi2_now)
                 if not verdict.ok:
                     rejected[c.entry_id] = Rejection(c.name, c.formula, c.entry_id, verdict.reason)
                 elif best is None or trial_fit.chi2 < best[0].chi2:
@@ -394,16 +415,35 @@ def decompose(
         if not accepted:
             break
 
-    # Final check on the joint fit: drop, weakest first, phases that later ones made redundant
-    # or whose own lines no longer stand (never the declared standard).
+    fit, starts = _drop_unsupported(ctx, refs, starts, evidence, fit, rejected, std_index)
+    if fit is not None and refs:
+        fit, starts, evidence = _try_texture(
+            ctx, peaks_all.peaks, refs, starts, evidence, fit, std_index,
+            threshold=max(math.log(n), min_delta_chi2),
+        )
+        # Texture changes the intensities other phases were accepted to make up for: check again.
+        fit, starts = _drop_unsupported(ctx, refs, starts, evidence, fit, rejected, std_index)
+
+    return _assemble(scan, library, ctx, peaks_all.peaks, refs, evidence, fit, rejected, std_index, standard,
+                     quant_method, min_significance, filters, max_phases, notes)
+
+
+def _drop_unsupported(ctx, refs, starts, evidence, fit, rejected, std_index):
+    """Final check on the joint fit: drop, weakest first, phases that later ones made redundant
+    or whose own lines no longer stand (never the declared standard).
+
+    ``refs``, ``evidence`` and ``rejected`` are updated in place; returns the new fit and
+    starting values.
+    """
     while fit is not None and len(refs) > (1 if std_index is not None else 0):
         worst, worst_gain, why = None, math.inf, ""
         for p in range(len(refs)):
             if p == std_index:
                 continue
             gain = ctx.gain_of(fit, p)
-            objection = _line_objection(_check_lines(fit, p))
-            if (gain <= threshold or objection) and gain < worst_gain:
+            lc = _check_lines(fit, p, ctx.scan.radiation)
+            objection = _line_objection(lc) or _lattice_objection(fit, refs, p, lc, ctx.scan)
+            if (gain <= ctx.threshold or objection) and gain < worst_gain:
                 worst, worst_gain = p, gain
                 why = objection or f"redundant once other phases were refined (Δχ²/GoF {gain:.0f})"
         if worst is None:
@@ -413,15 +453,7 @@ def decompose(
         starts = _carry(fit, starts)
         del refs[worst], starts[worst], evidence[worst]
         fit = ctx.refine(refs, starts) if refs else None
-
-    if fit is not None and refs:
-        fit, starts, evidence = _try_texture(
-            ctx, peaks_all.peaks, refs, starts, evidence, fit, std_index,
-            threshold=max(math.log(n), min_delta_chi2),
-        )
-
-    return _assemble(scan, library, ctx, peaks_all.peaks, refs, evidence, fit, rejected, std_index, standard,
-                     quant_method, min_significance, filters, max_phases, notes)
+    return fit, starts
 
 
 #: At most this many phases are given a preferred orientation.
@@ -598,17 +630,17 @@ class _Context:
         frac = np.clip(excess[keep] / np.maximum(obs[keep], 1e-9), 0.0, 1.0)
         return _take(peaks, keep, frac)
 
-    def judge(self, fit: RefinementResult, p: int, chi2_before: float) -> _Verdict:
+    def judge(self, fit: RefinementResult, refs: Sequence[ReferenceEntry], p: int, chi2_before: float) -> _Verdict:
         """Acceptance test for phase ``p`` of ``fit`` (module docstring)."""
         delta = (chi2_before - fit.chi2) / max(fit.gof, 1.0)
         prof = fit.phases[p].profile
-        lc = _check_lines(fit, p)
+        lc = _check_lines(fit, p, self.scan.radiation)
         present, checked = lc.present, lc.checked
         if fit.phases[p].scale <= 0 or not np.any(prof / fit.sigma >= 3.0):
             return _Verdict(False, "no line stands 3σ above the noise at the fitted scale", delta, self.threshold, present, checked)
         if delta <= self.threshold:
             return _Verdict(False, f"Δχ²/GoF {delta:.0f} not above {self.threshold:.0f}", delta, self.threshold, present, checked)
-        reason = _line_objection(lc)
+        reason = _line_objection(lc) or _lattice_objection(fit, refs, p, lc, self.scan)
         if reason:
             return _Verdict(False, reason, delta, self.threshold, present, checked)
         return _Verdict(True, "", delta, self.threshold, present, checked, lc.own_present)
@@ -623,6 +655,9 @@ def _line_objection(lc: _LineCheck) -> str:
     if lc.own_present < MIN_OWN_LINES:
         return (f"only {lc.own_present} of its lines present where it gives most of the calculated "
                 f"intensity (needs {MIN_OWN_LINES})")
+    if lc.resolved_present < MIN_RESOLVED_LINES:
+        return ("every line of it that is present falls on a line of another identified phase: "
+                "the extra intensity there says those lines are misfitted, not that this phase is present")
     return ""
 
 
@@ -632,13 +667,17 @@ class _LineCheck:
     checked: int  # strong lines examined (≥ 3σ at the fitted scale)
     strongest_missing: bool
     own_present: int  # present lines where this phase gives ≥ OWN_LINE_SHARE of the calculated counts
+    resolved_present: int = 0  # present lines with no line of another phase within ½ FWHM
+    present_at: np.ndarray = field(default_factory=lambda: np.zeros(0))  # 2θ of the present lines
 
 
-def _check_lines(fit: RefinementResult, p: int) -> _LineCheck:
+def _check_lines(fit: RefinementResult, p: int, radiation: Radiation) -> _LineCheck:
     """Presence of the strong lines of phase p of ``fit`` (module docstring).
 
     Lines are the local maxima of the phase's calculated profile; each is judged on the
-    counts within ±½ FWHM of its maximum.
+    counts within ±½ FWHM of its maximum. A maximum within ½ FWHM of where the Kα2 (or Kβ)
+    component of a stronger line falls is that line's satellite and is not counted again, so
+    one reflection cannot pass for two lines.
     """
     prof = fit.phases[p].profile
     x = fit.two_theta
@@ -650,12 +689,22 @@ def _check_lines(fit: RefinementResult, p: int) -> _LineCheck:
         return _LineCheck(0, 0, True, 0)
     tops = tops[np.argsort(-prof[tops])]
     step = float(np.median(np.diff(x)))
-    present = checked = own = 0
+    present = checked = own = resolved = 0
+    present_at: list[float] = []
     strongest_missing = False
     half_pts = max(1, int(round(0.5 * _typical_fwhm(fit) / step)))
-    for rank, i in enumerate(tops[: 3 * STRONG_LINES_CHECKED]):  # bounded: a few lines per phase
+    other_tops = _visible_tops(fit, exclude=p)
+    ratios = np.asarray(radiation.wavelengths[1:], dtype=float) / float(radiation.wavelengths[0])
+    satellites = np.zeros(0)
+    rank = -1
+    for i in tops[: 4 * STRONG_LINES_CHECKED]:  # bounded: a few lines per phase
         if checked >= STRONG_LINES_CHECKED:
             break
+        if np.any(np.abs(satellites - x[i]) <= half_pts * step):
+            continue
+        sin_t = np.sin(np.radians(x[i]) / 2.0) * ratios
+        satellites = np.concatenate([satellites, 2.0 * np.degrees(np.arcsin(sin_t[sin_t < 1.0]))])
+        rank += 1
         sl = slice(max(0, i - half_pts), i + half_pts + 1)
         pred = float(prof[sl].sum())
         noise = float(np.sqrt(np.sum(fit.sigma[sl] ** 2)))
@@ -665,9 +714,56 @@ def _check_lines(fit: RefinementResult, p: int) -> _LineCheck:
         ok = float(net[sl].sum()) >= LINE_PRESENT_RATIO * pred
         present += ok
         own += ok and pred >= OWN_LINE_SHARE * float(net_calc[sl].sum())
+        resolved += ok and not np.any(np.abs(other_tops - i) <= half_pts)
+        if ok:
+            present_at.append(float(x[i]))
         if rank == 0 and not ok:
             strongest_missing = True
-    return _LineCheck(present, checked, strongest_missing, own)
+    return _LineCheck(present, checked, strongest_missing, own, resolved, np.array(present_at))
+
+
+def _lattice_objection(fit: RefinementResult, refs: Sequence[ReferenceEntry], p: int, lc: _LineCheck,
+                       scan: Scan) -> str:
+    """Objection when every present line of phase p sits on a reflection of one other phase.
+
+    Another identified phase A "covers" a line of p when one of A's reflections — any of
+    them, however weak A draws it — lies within ½ FWHM at A's refined cell and shift. When A
+    covers all of p's present lines, p's evidence is intensity at A's reflection positions:
+    what A with other intensities (a phase of A's structure type missing from the library,
+    texture) explains as well. It counts only when chance is an unlikely cause: the
+    probability that A covers all of them by chance, the product over lines of A's
+    reflection density near the line times the window (one FWHM), must stay below
+    :data:`COINCIDENCE_CHANCE` divided by the number of other phases; a low-symmetry phase
+    with reflections everywhere covers anything and so proves nothing.
+    """
+    if lc.present_at.size == 0:
+        return ""
+    fw = _typical_fwhm(fit)
+    others = [q for q in range(len(refs)) if q != p]
+    for q in others:
+        pos = _drawn_lines(refs[q], fit.phases[q], scan)["line_two_theta"]
+        if pos.size == 0:
+            continue
+        if not np.all(np.min(np.abs(lc.present_at[:, None] - pos[None, :]), axis=1) <= 0.5 * fw):
+            continue
+        near = np.sum(np.abs(lc.present_at[:, None] - pos[None, :]) <= DENSITY_HALF_WINDOW, axis=1)
+        chance = float(np.prod(np.clip(near / (2.0 * DENSITY_HALF_WINDOW) * fw, 0.0, 1.0)))
+        if chance < COINCIDENCE_CHANCE / len(others):
+            return (f"each of its {lc.present_at.size} present lines falls on a reflection of {refs[q].name} "
+                    f"(by chance: p = {chance:.1g}), so the intensity there is that phase's misfit, not this phase")
+    return ""
+
+
+def _visible_tops(fit: RefinementResult, *, exclude: int) -> np.ndarray:
+    """Grid indices of the line maxima, 3σ above the noise, of every phase but ``exclude``."""
+    found = [np.zeros(0, dtype=np.int64)]
+    for q, ph in enumerate(fit.phases):
+        if q == exclude:
+            continue
+        prof = ph.profile
+        tops = np.flatnonzero((prof[1:-1] > prof[:-2]) & (prof[1:-1] >= prof[2:])) + 1
+        found.append(tops[prof[tops] >= 3.0 * fit.sigma[tops]])
+    return np.concatenate(found)
 
 
 def _typical_fwhm(fit: RefinementResult) -> float:
