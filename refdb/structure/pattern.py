@@ -27,7 +27,7 @@ from refdb.profiles import caglioti_fwhm, pseudo_voigt, scherrer_fwhm
 from refdb.radiation import Radiation, two_theta_from_d
 from refdb.records import PatternLines, ReferenceData
 from refdb.structure import _symmetry
-from refdb.structure.crystal import direct_metric
+from refdb.structure.crystal import reciprocal_metric
 
 #: Default Caglioti U, V, W (deg²): FWHM ≈ 0.05° at 30° and 0.08° at 90° 2θ, a laboratory
 #: Bragg–Brentano instrument with a strip detector (common practice, no source).
@@ -198,7 +198,7 @@ def orientation_factor(hkl: np.ndarray, ref: ReferenceData, md: MarchDollase) ->
     if ref.cell is None:
         raise InputError(f"{ref.name}: preferred orientation needs the cell")
     laue = _symmetry.laue_rotations(_rotations_of(ref))
-    gstar = np.linalg.inv(direct_metric(ref.cell))
+    gstar = reciprocal_metric(ref.cell)
     images = np.einsum("ni,kij->nkj", hkl.astype(float), laue)  # (n, k, 3)
     axis = np.asarray(md.axis, dtype=float)
     dot = images @ gstar @ axis

@@ -2,7 +2,8 @@
 
 * f0(s), s = sinθ/λ = 1/(2d) in Å⁻¹: Waasmaier & Kirfel (1995), Acta Cryst. A51, 416–431,
   five-Gaussian fits to International Tables Vol. C Tables 6.1.1.1 (atoms) and 6.1.1.3 (ions),
-  as shipped by xraydb. Coefficients are read once per species and evaluated with numpy.
+  as shipped by xraydb. Coefficients are read once per species (cached for the process) and
+  evaluated with numpy.
 * f′, f″: Chantler (1995), J. Phys. Chem. Ref. Data 24, 71 (NIST FFAST), via
   ``xraydb.f1_chantler`` / ``xraydb.f2_chantler`` (which return the anomalous parts only).
 * Atomic masses: xraydb's element table (IUPAC standard atomic weights).
@@ -89,12 +90,26 @@ def f0(species: str, s: np.ndarray | float) -> np.ndarray:
     return c + np.exp(-np.multiply.outer(s * s, b)) @ a
 
 
-def f0_table(species: tuple[str, ...], s: np.ndarray) -> np.ndarray:
-    """f0 of several species at the same s values, shape (len(s), len(species))."""
-    out = np.empty((s.shape[0], len(species)))
-    for j, sp in enumerate(species):  # a handful of species, each evaluated on all s at once
-        out[:, j] = f0(sp, s)
-    return out
+@functools.lru_cache(maxsize=None)
+def _gaussian_terms(species: str) -> tuple[tuple[float, ...], tuple[float, ...]]:
+    c, a, b = _coefficients(species)
+    return (*a.tolist(), c), (*b.tolist(), 0.0)
+
+
+def gaussian_terms(species: tuple[str, ...]) -> tuple[np.ndarray, np.ndarray]:
+    """Waasmaier–Kirfel fits of several species as six Gaussians each.
+
+    f0(s) = Σ_t a_t·exp(−b_t s²) with the constant c as a sixth term (b = 0), so that a
+    Debye–Waller factor exp(−B s²) folds into the exponents: f0·exp(−B s²) = Σ_t a_t·exp(−(b_t + B) s²).
+    The coefficients of each species are read from xraydb once per process (a static table).
+
+    Returns
+    -------
+    a, b : ndarray, shape (len(species), 6)
+        Amplitudes in electrons and exponents in Å².
+    """
+    rows = [_gaussian_terms(sp) for sp in species]  # a handful of species, not atoms
+    return np.array([r[0] for r in rows]).reshape(-1, 6), np.array([r[1] for r in rows]).reshape(-1, 6)
 
 
 @functools.lru_cache(maxsize=None)
