@@ -137,28 +137,25 @@ def stick_pattern(
         base = base * orientation_factor(pl.hkl, ref, md)
 
     n = len(pl)
-    k = radiation.wavelengths.shape[0]
-    d_rep = np.tile(pl.d, k)
-    tt = np.concatenate([two_theta_from_d(pl.d, lam) for lam in radiation.wavelengths])
-    weight = np.repeat(radiation.weights, n)
-    which = np.repeat(np.arange(k), n)
-    index = np.tile(np.arange(n), k)
-    inside = np.isfinite(tt) & (tt >= lo) & (tt <= hi)
-    tt, d_rep, weight, which, index = tt[inside], d_rep[inside], weight[inside], which[inside], index[inside]
+    # (emission line, reflection) pairs, line-major: pair p is line p // n, reflection p % n.
+    tt = two_theta_from_d(pl.d, radiation.wavelengths[:, None]).ravel()
+    pair = np.flatnonzero((tt >= lo) & (tt <= hi))  # d < λ/2 gives NaN: never inside
+    which, index = np.divmod(pair, n)
+    tt = tt[pair]
     lp = lorentz_polarisation(tt, monochromator_two_theta=radiation.monochromator_two_theta)
-    absolute = base[index] * lp * weight
+    absolute = base[index] * lp * radiation.weights[which]
     order = np.argsort(tt, kind="stable")
     absolute = absolute[order]
     top = float(absolute.max()) if absolute.size else 0.0
     index = index[order]
     return Sticks(
         two_theta=tt[order],
-        d=d_rep[order],
+        d=pl.d[index],
         hkl=None if pl.hkl is None else pl.hkl[index],
         multiplicity=None if pl.multiplicity is None else pl.multiplicity[index],
         intensity=absolute * (100.0 / top) if top > 0 else np.zeros_like(absolute),
         absolute=absolute,
-        line_name=tuple(radiation.line_names[i] for i in which[order]),
+        line_name=tuple(np.array(radiation.line_names, dtype=object)[which[order]].tolist()),
         line_index=index,
         radiation=radiation,
     )
