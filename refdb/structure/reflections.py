@@ -83,7 +83,6 @@ def unique_reflections(
     Returns
     -------
     rep : ndarray, shape (u, 3), int
-        In no particular order.
     multiplicity : ndarray, shape (u,), int
         Members of each orbit inside the sphere (Friedel mates included).
     inv_d2 : ndarray, shape (u,)
@@ -96,39 +95,34 @@ def unique_reflections(
     span = [3 * m + 1 for m in (np.abs(hkl).max(axis=0).tolist() if n else (0, 0, 0))]
     base = [2 * m + 1 for m in span]
     key_range = float(base[0] * base[1] * base[2])
-    # Every image h·R is ranked by one number: (non-negative indices)·key_range plus the
-    # mixed-radix key h·w (|h·w| < key_range / 2), which orders images lexicographically. The
-    # numbers are exact integers below 2**53, so float64 arithmetic (BLAS) is exact here. The
-    # best-ranked image names the orbit and is its representative.
+    # The mixed-radix key h·w (|h·w| < key_range / 2) orders reflections lexicographically.
+    # Keys are exact integers below 2**53, so float64 arithmetic (BLAS) is exact here.
     weights = np.array([base[1] * base[2], base[2], 1.0])
     laue_f = laue.astype(float)
-    ops = laue_f.transpose(1, 0, 2).reshape(3, 3 * n_ops)  # h @ ops: every image h·R
-    key_of_ops = (laue_f @ weights).T  # h @ key_of_ops: every key h·R·w
-    per_sign = np.full(3, key_range)
+    key_of_ops = (laue_f @ weights).T  # h @ key_of_ops: every key h·R·w, (3, k)
     hkl_f = hkl.astype(float)
-    rank = np.empty(n)
-    best = np.empty((n, 3))
-    step = max(1, _BLOCK // (3 * n_ops))
+    # Stage 1, every reflection: the orbit is named by its lexicographically largest member.
+    canon = np.empty(n)
+    step = max(1, _BLOCK // n_ops)
     for start in range(0, n, step):
-        rows = slice(start, start + step)
-        images = (hkl_f[rows] @ ops).reshape(-1, 3)  # (b·k, 3)
-        score = hkl_f[rows] @ key_of_ops  # (b, k)
-        # A sum over a length-3 axis is one small matrix product (numpy's reduction is slow there).
-        score += ((images >= 0).astype(float) @ per_sign).reshape(score.shape)
-        top = np.argmax(score, axis=1)
-        pick = np.arange(top.shape[0]), top
-        rank[rows] = score[pick]
-        best[rows] = images.reshape(-1, n_ops, 3)[pick]
-    # Members of one orbit share the rank: runs of a stable sort (members in input order).
-    order = np.argsort(rank, kind="stable")
-    ranked = rank[order]
+        canon[start : start + step] = (hkl_f[start : start + step] @ key_of_ops).max(axis=1)
+    # Members of one orbit share the name: runs of a stable sort (members in input order).
+    order = np.argsort(canon, kind="stable")
+    ranked = canon[order]
     edge = np.empty(n + 1, dtype=bool)
     edge[0] = edge[n] = True
     np.not_equal(ranked[1:], ranked[:-1], out=edge[1:n])
     bounds = np.flatnonzero(edge)
     starts, counts = bounds[:-1], np.diff(bounds)
-    rep = best[order[starts]].astype(np.int64)
     mean_inv_d2 = np.add.reduceat(inv_d2[order], starts) / counts if n else np.zeros(0)
+    # Stage 2, one member per orbit: rank its images by (non-negative indices)·key_range + key.
+    member = hkl_f[order[starts]]
+    images = (member @ laue_f.transpose(1, 0, 2).reshape(3, 3 * n_ops)).reshape(-1, 3)  # (u·k, 3)
+    score = member @ key_of_ops  # (u, k)
+    # A sum over a length-3 axis is one small matrix product (numpy's reduction is slow there).
+    score += ((images >= 0).astype(float) @ np.full(3, key_range)).reshape(score.shape)
+    top = np.argmax(score, axis=1)
+    rep = images.reshape(-1, n_ops, 3)[np.arange(top.shape[0]), top].astype(np.int64)
     return rep, 2 * counts, mean_inv_d2
 
 
@@ -165,18 +159,16 @@ def structure_factors(
     occ_matrix = np.zeros((crystal.n_atoms, n_groups), dtype=np.float32)
     occ_matrix[np.arange(crystal.n_atoms), atom_group.ravel()] = crystal.occupancy
     atom_of_group = first_atom.tolist()
-    species = tuple(scattering.species_name(crystal.elements[i], int(crystal.charges[i])) for i in atom_of_group)
-    coeff, exponent = scattering.gaussian_terms(species)  # (groups, 6)
-    exponent = exponent + crystal.b_iso[first_atom, None]  # the Debye–Waller factor folded in
+    group_species = [scattering.species_name(crystal.elements[i], int(crystal.charges[i])) for i in atom_of_group]
+    names = tuple(dict.fromkeys(group_species))  # distinct species, a handful
+    column = [names.index(sp) for sp in group_species]
+    thermal = np.exp(np.multiply.outer(-s2, crystal.b_iso[first_atom]))  # exp(−Bs²), (n, groups)
+    amplitude = scattering.f0_table(names, np.sqrt(s2))[:, column] * thermal
+    imaginary = None
     if anomalous:
-        # f′ adds to the constant term (exponent B), f″ is an imaginary scatterer with that term.
         fp, fpp = np.array([anomalous[crystal.elements[i]] for i in atom_of_group]).reshape(-1, 2).T
-        coeff = coeff.copy()
-        coeff[:, 5] += fp
-    terms = np.exp(np.multiply.outer(-s2, exponent))  # (n, groups, 6)
-    # Sums over short axes are matrix products with ones (numpy's reductions are slow there).
-    amplitude = ((terms * coeff).reshape(-1, 6) @ np.ones(6)).reshape(-1, n_groups)  # f·exp(−Bs²)
-    imaginary = terms[:, :, 5] * fpp if anomalous else None
+        amplitude += thermal * fp
+        imaginary = thermal * fpp
     per_group = np.ones(n_groups)
     f2 = np.empty(hkl.shape[0])
     frac_t = crystal.frac.T.copy()

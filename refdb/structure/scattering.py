@@ -91,25 +91,23 @@ def f0(species: str, s: np.ndarray | float) -> np.ndarray:
 
 
 @functools.lru_cache(maxsize=None)
-def _gaussian_terms(species: str) -> tuple[tuple[float, ...], tuple[float, ...]]:
+def _six_terms(species: str) -> tuple[float, ...]:
+    """a1…a5, c, b1…b5, 0: the fit as six Gaussians, the constant c being one with b = 0."""
     c, a, b = _coefficients(species)
-    return (*a.tolist(), c), (*b.tolist(), 0.0)
+    return (*a.tolist(), c, *b.tolist(), 0.0)
 
 
-def gaussian_terms(species: tuple[str, ...]) -> tuple[np.ndarray, np.ndarray]:
-    """Waasmaier–Kirfel fits of several species as six Gaussians each.
+def f0_table(species: tuple[str, ...], s: np.ndarray) -> np.ndarray:
+    """f0 of several species at the same s values, shape (len(s), len(species)).
 
-    f0(s) = Σ_t a_t·exp(−b_t s²) with the constant c as a sixth term (b = 0), so that a
-    Debye–Waller factor exp(−B s²) folds into the exponents: f0·exp(−B s²) = Σ_t a_t·exp(−(b_t + B) s²).
-    The coefficients of each species are read from xraydb once per process (a static table).
-
-    Returns
-    -------
-    a, b : ndarray, shape (len(species), 6)
-        Amplitudes in electrons and exponents in Å².
+    All species are evaluated together as f0 = Σ_t a_t·exp(−b_t s²) over six terms (the
+    constant c is the sixth, with b = 0); their coefficients come from the per-species cache.
     """
-    rows = [_gaussian_terms(sp) for sp in species]  # a handful of species, not atoms
-    return np.array([r[0] for r in rows]).reshape(-1, 6), np.array([r[1] for r in rows]).reshape(-1, 6)
+    table = np.array([_six_terms(sp) for sp in species]).reshape(-1, 12)  # a handful of rows
+    s = np.asarray(s, dtype=float)
+    terms = np.exp(np.multiply.outer(-(s * s), table[:, 6:])) * table[:, :6]  # (n, species, 6)
+    # The sum over six terms as a product with ones (numpy's reduction is slow on short axes).
+    return (terms.reshape(-1, 6) @ np.ones(6)).reshape(s.shape[0], len(species))
 
 
 @functools.lru_cache(maxsize=None)
