@@ -92,20 +92,22 @@ def unique_reflections(
     n, n_ops = hkl.shape[0], laue.shape[0]
     # Images of a reflection can have larger indices than any member of the sphere (hexagonal
     # axes map (h, k) to (h + k)); three times the largest index bounds them.
-    span = [3 * m + 1 for m in (np.abs(hkl).max(axis=0).tolist() if n else (0, 0, 0))]
-    base = [2 * m + 1 for m in span]
-    key_range = float(base[0] * base[1] * base[2])
+    span = 3 * (int(np.abs(hkl).max()) if n else 0) + 1
+    base = 2 * span + 1
+    key_range = float(base**3)
     # The mixed-radix key h·w (|h·w| < key_range / 2) orders reflections lexicographically.
     # Keys are exact integers below 2**53, so float64 arithmetic (BLAS) is exact here.
-    weights = np.array([base[1] * base[2], base[2], 1.0])
+    weights = np.array([base * base, base, 1.0])
     laue_f = laue.astype(float)
-    key_of_ops = (laue_f @ weights).T  # h @ key_of_ops: every key h·R·w, (3, k)
+    ops_key = laue_f @ weights  # (k, 3): ops_key @ h = every key h·R·w
     hkl_f = hkl.astype(float)
     # Stage 1, every reflection: the orbit is named by its lexicographically largest member.
+    # Keys are laid out (operations × reflections): numpy's max down columns is many times
+    # faster than along short rows.
     canon = np.empty(n)
     step = max(1, _BLOCK // n_ops)
     for start in range(0, n, step):
-        canon[start : start + step] = (hkl_f[start : start + step] @ key_of_ops).max(axis=1)
+        canon[start : start + step] = (ops_key @ hkl_f[start : start + step].T).max(axis=0)
     # Members of one orbit share the name: runs of a stable sort (members in input order).
     order = np.argsort(canon, kind="stable")
     ranked = canon[order]
@@ -118,7 +120,7 @@ def unique_reflections(
     # Stage 2, one member per orbit: rank its images by (non-negative indices)·key_range + key.
     member = hkl_f[order[starts]]
     images = (member @ laue_f.transpose(1, 0, 2).reshape(3, 3 * n_ops)).reshape(-1, 3)  # (u·k, 3)
-    score = member @ key_of_ops  # (u, k)
+    score = member @ ops_key.T  # (u, k)
     # A sum over a length-3 axis is one small matrix product (numpy's reduction is slow there).
     score += ((images >= 0).astype(float) @ np.full(3, key_range)).reshape(score.shape)
     top = np.argmax(score, axis=1)
