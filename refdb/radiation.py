@@ -192,15 +192,16 @@ def _anode_key(anode: str) -> str:
     raise InputError(f"unknown anode {anode!r}", f"choose one of {', '.join(ANODES)} or give --wavelength in Å")
 
 
-def two_theta_from_d(d: np.ndarray | float, wavelength: float) -> np.ndarray:
+def two_theta_from_d(d: np.ndarray | float, wavelength: float | np.ndarray) -> np.ndarray:
     """Bragg's law, first order: 2θ = 2·asin(λ / 2d), in degrees.
 
-    d-spacings shorter than λ/2 cannot diffract; they give NaN.
+    d-spacings shorter than λ/2 cannot diffract; they give NaN. ``d`` and ``wavelength``
+    broadcast (e.g. wavelengths of shape (k, 1) against d of shape (n,) give (k, n)).
     """
     d = np.asarray(d, dtype=float)
     with np.errstate(divide="ignore", invalid="ignore"):
         s = wavelength / (2.0 * d)
-        return np.where((s > 0) & (s <= 1.0), 2.0 * np.degrees(np.arcsin(np.clip(s, 0, 1))), np.nan)
+        return np.where(s > 0, 2.0 * np.degrees(np.arcsin(s)), np.nan)  # arcsin(s > 1) is NaN
 
 
 def d_from_two_theta(two_theta: np.ndarray | float, wavelength: float) -> np.ndarray:

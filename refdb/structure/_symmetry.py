@@ -27,6 +27,7 @@ SPECIAL_POSITION_TOLERANCE = 0.1
 #: Two atoms cannot be closer than ~0.7 Å (the H–H bond, 0.74 Å); distinct images of one site
 #: closer than this are alternative positions of one atom (a split site).
 CROWDING_DISTANCE = 0.7
+_BASE5 = 5 ** np.arange(9, dtype=np.int64)
 
 
 @dataclass(frozen=True, eq=False)
@@ -164,12 +165,16 @@ def expand_sites(
 
 
 def laue_rotations(rotations: np.ndarray) -> np.ndarray:
-    """The distinct rotation parts and their negatives: the Laue class, shape (k, 3, 3), int."""
-    both = np.concatenate([rotations, -rotations]).reshape(-1, 9)
+    """The distinct rotation parts and their negatives: the Laue class, shape (k, 3, 3), int.
+
+    The matrices come in the order of their base-5 codes (below).
+    """
+    flat = rotations.reshape(-1, 9)
+    both = np.concatenate((flat, -flat))
     # Entries of rotation matrices in any lattice basis are small integers (|Rij| ≤ 2 allows
-    # every setting): a base-5 number names each matrix, and a 1-D unique is cheap.
-    if np.abs(both).max() > 2:  # an unusual setting: the general (slower) unique
+    # every setting): a base-5 number names each matrix, and a 1-D unique is cheap. The
+    # largest entry of ±R is the largest |Rij|.
+    if both.max() > 2:  # an unusual setting: the general (slower) unique
         return np.unique(both, axis=0).reshape(-1, 3, 3)
-    code = (both + 2) @ (5 ** np.arange(9, dtype=np.int64))
-    _, first = np.unique(code, return_index=True)
-    return both[np.sort(first)].reshape(-1, 3, 3)
+    _, first = np.unique((both + 2) @ _BASE5, return_index=True)
+    return both[first].reshape(-1, 3, 3)

@@ -6,6 +6,7 @@ reference patterns) trusts a :class:`Crystal`, so all checks live here.
 
 from __future__ import annotations
 
+import math
 import re
 from dataclasses import dataclass
 from pathlib import Path
@@ -112,7 +113,7 @@ class Crystal:
     @property
     def reciprocal_metric(self) -> np.ndarray:
         """Reciprocal metric tensor G* = G⁻¹ (3, 3) in Å⁻²; 1/d² = h·G*·hᵀ."""
-        return np.linalg.inv(self.direct_metric)
+        return reciprocal_metric(self.cell)
 
     @property
     def volume(self) -> float:
@@ -138,6 +139,32 @@ def direct_metric(cell: tuple[float, ...]) -> np.ndarray:
     ca, cb, cg = np.cos(np.radians(cell[3:]))
     return np.array(
         [[a * a, a * b * cg, a * c * cb], [a * b * cg, b * b, b * c * ca], [a * c * cb, b * c * ca, c * c]]
+    )
+
+
+def reciprocal_metric(cell: tuple[float, ...]) -> np.ndarray:
+    """Reciprocal metric tensor G* = G⁻¹ of a cell, in Å⁻², written out (ITC Vol. B §1.1.3).
+
+    G*11 = b²c² sin²α / V², G*12 = abc² (cosα cosβ − cosγ) / V² (and cyclically), with
+    V² = a²b²c² (1 − cos²α − cos²β − cos²γ + 2 cosα cosβ cosγ). The differences of cosines
+    cancel for cells with small angles; they are taken in product form with σ = (α + β + γ)/2,
+    1 − cos²α − … = 4 sinσ sin(σ−α) sin(σ−β) sin(σ−γ) and
+    cosα cosβ − cosγ = sin(σ−α) sin(σ−β) − sinσ sin(σ−γ) (sum-to-product identities).
+    """
+    a, b, c = cell[:3]
+    al, be, ga = (math.radians(x) for x in cell[3:])
+    sigma = (al + be + ga) / 2.0
+    s0, sa, sb, sg = math.sin(sigma), math.sin(sigma - al), math.sin(sigma - be), math.sin(sigma - ga)
+    v2 = (a * b * c) ** 2 * 4.0 * s0 * sa * sb * sg
+    g12 = a * b * c * c * (sa * sb - s0 * sg) / v2
+    g13 = a * b * b * c * (sa * sg - s0 * sb) / v2
+    g23 = a * a * b * c * (sb * sg - s0 * sa) / v2
+    return np.array(
+        [
+            [(b * c * math.sin(al)) ** 2 / v2, g12, g13],
+            [g12, (a * c * math.sin(be)) ** 2 / v2, g23],
+            [g13, g23, (a * b * math.sin(ga)) ** 2 / v2],
+        ]
     )
 
 

@@ -27,7 +27,7 @@ from refdb.profiles import caglioti_fwhm, pseudo_voigt, scherrer_fwhm
 from refdb.radiation import Radiation, two_theta_from_d
 from refdb.records import PatternLines, ReferenceData
 from refdb.structure import _symmetry
-from refdb.structure.crystal import direct_metric
+from refdb.structure.crystal import reciprocal_metric
 
 #: Default Caglioti U, V, W (deg²): FWHM ≈ 0.05° at 30° and 0.08° at 90° 2θ, a laboratory
 #: Bragg–Brentano instrument with a strip detector (common practice, no source).
@@ -137,28 +137,25 @@ def stick_pattern(
         base = base * orientation_factor(pl.hkl, ref, md)
 
     n = len(pl)
-    k = radiation.wavelengths.shape[0]
-    d_rep = np.tile(pl.d, k)
-    tt = np.concatenate([two_theta_from_d(pl.d, lam) for lam in radiation.wavelengths])
-    weight = np.repeat(radiation.weights, n)
-    which = np.repeat(np.arange(k), n)
-    index = np.tile(np.arange(n), k)
-    inside = np.isfinite(tt) & (tt >= lo) & (tt <= hi)
-    tt, d_rep, weight, which, index = tt[inside], d_rep[inside], weight[inside], which[inside], index[inside]
+    # (emission line, reflection) pairs, line-major: pair p is line p // n, reflection p % n.
+    tt = two_theta_from_d(pl.d, radiation.wavelengths[:, None]).ravel()
+    pair = np.flatnonzero((tt >= lo) & (tt <= hi))  # d < λ/2 gives NaN: never inside
+    which, index = np.divmod(pair, n)
+    tt = tt[pair]
     lp = lorentz_polarisation(tt, monochromator_two_theta=radiation.monochromator_two_theta)
-    absolute = base[index] * lp * weight
+    absolute = base[index] * lp * radiation.weights[which]
     order = np.argsort(tt, kind="stable")
     absolute = absolute[order]
     top = float(absolute.max()) if absolute.size else 0.0
     index = index[order]
     return Sticks(
         two_theta=tt[order],
-        d=d_rep[order],
+        d=pl.d[index],
         hkl=None if pl.hkl is None else pl.hkl[index],
         multiplicity=None if pl.multiplicity is None else pl.multiplicity[index],
         intensity=absolute * (100.0 / top) if top > 0 else np.zeros_like(absolute),
         absolute=absolute,
-        line_name=tuple(radiation.line_names[i] for i in which[order]),
+        line_name=tuple(np.array(radiation.line_names, dtype=object)[which[order]].tolist()),
         line_index=index,
         radiation=radiation,
     )
@@ -198,7 +195,7 @@ def orientation_factor(hkl: np.ndarray, ref: ReferenceData, md: MarchDollase) ->
     if ref.cell is None:
         raise InputError(f"{ref.name}: preferred orientation needs the cell")
     laue = _symmetry.laue_rotations(_rotations_of(ref))
-    gstar = np.linalg.inv(direct_metric(ref.cell))
+    gstar = reciprocal_metric(ref.cell)
     images = np.einsum("ni,kij->nkj", hkl.astype(float), laue)  # (n, k, 3)
     axis = np.asarray(md.axis, dtype=float)
     dot = images @ gstar @ axis

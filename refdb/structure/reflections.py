@@ -44,18 +44,19 @@ def miller_sphere(crystal: Crystal, d_min: float) -> tuple[np.ndarray, np.ndarra
     Returns
     -------
     hkl : ndarray, shape (n, 3), int64
+        In lexicographic order.
     inv_d2 : ndarray, shape (n,)
         1/d² in Å⁻² from the reciprocal metric tensor.
     """
     gstar = crystal.reciprocal_metric
-    limits = np.floor(np.array(crystal.cell[:3]) / d_min + 1e-9).astype(np.int64)
-    axes = [np.arange(0, limits[0] + 1, dtype=np.int64)] + [np.arange(-m, m + 1, dtype=np.int64) for m in limits[1:]]
-    hkl = np.stack(np.meshgrid(*axes, indexing="ij"), axis=-1).reshape(-1, 3)
-    h, k, l = hkl.T
-    half = (h > 0) | ((h == 0) & ((k > 0) | ((k == 0) & (l > 0))))
-    hkl = hkl[half]
+    # floor(edge / d_min) (positive numbers); 1e-9 keeps an index whose d is d_min exactly.
+    na, nb, nc = (int(edge / d_min + 1e-9) for edge in crystal.cell[:3])
+    # The box 0 ≤ h ≤ na, |k| ≤ nb, |l| ≤ nc in lexicographic order: the half-space is every
+    # row after that of 000, which is row nb·(2nc + 1) + nc.
+    box = np.indices((na + 1, 2 * nb + 1, 2 * nc + 1)).reshape(3, -1).T
+    hkl = box[nb * (2 * nc + 1) + nc + 1 :] - np.array([0, nb, nc])
     hkl_f = hkl.astype(float)
-    inv_d2 = np.sum((hkl_f @ gstar) * hkl_f, axis=1)
+    inv_d2 = ((hkl_f @ gstar) * hkl_f) @ np.ones(3)  # row sums (numpy's sum is slow on 3 columns)
     inside = inv_d2 <= (1.0 + 1e-12) / (d_min * d_min)
     return hkl[inside], inv_d2[inside]
 
@@ -88,35 +89,43 @@ def unique_reflections(
         Mean 1/d² of the members (they agree to rounding when the cell has the group's
         symmetry; at the sphere's edge an orbit may be cut by rounding, hence the mean).
     """
+    n, n_ops = hkl.shape[0], laue.shape[0]
     # Images of a reflection can have larger indices than any member of the sphere (hexagonal
     # axes map (h, k) to (h + k)); three times the largest index bounds them.
-    span = 3 * (np.abs(hkl).max(axis=0) if len(hkl) else np.zeros(3, dtype=np.int64)) + 1
+    span = 3 * (int(np.abs(hkl).max()) if n else 0) + 1
     base = 2 * span + 1
-    lex_size = int(np.prod(base))
-
+    key_range = float(base**3)
+    # The mixed-radix key h·w (|h·w| < key_range / 2) orders reflections lexicographically.
     # Keys are exact integers below 2**53, so float64 arithmetic (BLAS) is exact here.
-    # Stage 1, every reflection: the orbit is named by its lexicographically largest member,
-    # whose key h·R·w is one matrix product for all R.
-    weights = np.array([base[1] * base[2], base[2], 1], dtype=float)
-    offset = float(span @ weights)
-    n_ops = laue.shape[0]
-    lex_of_ops = (laue.astype(float) @ weights).T  # (3, k): column j is R_j·w
+    weights = np.array([base * base, base, 1.0])
+    laue_f = laue.astype(float)
+    ops_key = laue_f @ weights  # (k, 3): ops_key @ h = every key h·R·w
     hkl_f = hkl.astype(float)
-    canon = np.empty(hkl.shape[0], dtype=np.int64)
+    # Stage 1, every reflection: the orbit is named by its lexicographically largest member.
+    # Keys are laid out (operations × reflections): numpy's max down columns is many times
+    # faster than along short rows.
+    canon = np.empty(n)
     step = max(1, _BLOCK // n_ops)
-    for start in range(0, hkl.shape[0], step):
-        canon[start : start + step] = np.rint((hkl_f[start : start + step] @ lex_of_ops).max(axis=1) + offset)
-    keys, orbit, counts = np.unique(canon, return_inverse=True, return_counts=True)
-    # The key is (h + span)·w, a mixed-radix number whose digits are the shifted indices.
-    first = np.stack([keys // (base[1] * base[2]), (keys // base[2]) % base[1], keys % base[2]], axis=1) - span
-    # Stage 2, one member per orbit: prefer the member with the fewest negative indices.
-    ops = laue.transpose(1, 0, 2).reshape(3, 3 * n_ops).astype(float)
-    images = (first.astype(float) @ ops).reshape(-1, n_ops, 3)  # (u, k, 3)
-    score = (3.0 - np.count_nonzero(images < 0, axis=2)) * lex_size + images @ weights
-    best = np.argmax(score, axis=1)
-    rep = np.rint(images[np.arange(images.shape[0]), best]).astype(np.int64)
-    mean_inv_d2 = np.bincount(orbit.ravel(), weights=inv_d2, minlength=keys.size) / counts
-    return rep, 2 * counts.astype(np.int64), mean_inv_d2
+    for start in range(0, n, step):
+        canon[start : start + step] = (ops_key @ hkl_f[start : start + step].T).max(axis=0)
+    # Members of one orbit share the name: runs of a stable sort (members in input order).
+    order = np.argsort(canon, kind="stable")
+    ranked = canon[order]
+    edge = np.empty(n + 1, dtype=bool)
+    edge[0] = edge[n] = True
+    np.not_equal(ranked[1:], ranked[:-1], out=edge[1:n])
+    bounds = np.flatnonzero(edge)
+    starts, counts = bounds[:-1], np.diff(bounds)
+    mean_inv_d2 = np.add.reduceat(inv_d2[order], starts) / counts if n else np.zeros(0)
+    # Stage 2, one member per orbit: rank its images by (non-negative indices)·key_range + key.
+    member = hkl_f[order[starts]]
+    images = (member @ laue_f.transpose(1, 0, 2).reshape(3, 3 * n_ops)).reshape(-1, 3)  # (u·k, 3)
+    score = member @ ops_key.T  # (u, k)
+    # A sum over a length-3 axis is one small matrix product (numpy's reduction is slow there).
+    score += ((images >= 0).astype(float) @ np.full(3, key_range)).reshape(score.shape)
+    top = np.argmax(score, axis=1)
+    rep = images.reshape(-1, n_ops, 3)[np.arange(top.shape[0]), top].astype(np.int64)
+    return rep, 2 * counts, mean_inv_d2
 
 
 def structure_factors(
@@ -140,32 +149,32 @@ def structure_factors(
     ndarray, shape (n,)
     """
     s2 = inv_d2 / 4.0
-    species = tuple(scattering.species_name(e, int(c)) for e, c in zip(crystal.elements, crystal.charges, strict=True))
-    names, atom_species = np.unique(np.array(species), return_inverse=True)
-    # Atoms sharing a species and a B share f0·exp(−Bs²): the phase sums of a group are one
-    # matrix product (reflections × atoms) @ (atoms × groups) with the occupancies.
-    b_key = np.rint(crystal.b_iso * 1e6).astype(np.int64)  # B to 1e-6 Å²
-    group_keys, first_atom, atom_group = np.unique(
-        atom_species.ravel() * (b_key.max() + 1) + b_key, return_index=True, return_inverse=True
-    )
-    atom_group = atom_group.ravel()
-    occ_matrix = np.zeros((crystal.n_atoms, group_keys.size))
-    occ_matrix[np.arange(crystal.n_atoms), atom_group] = crystal.occupancy
-    group_species = atom_species.ravel()[first_atom]
-    group_b = crystal.b_iso[first_atom]
-    f0 = scattering.f0_table(tuple(names), np.sqrt(s2))[:, group_species]  # (n, groups)
-    amplitude = f0 * np.exp(-np.multiply.outer(s2, group_b))  # (n, groups)
+    # Atoms of one element, charge and B scatter alike: each such group needs f0·exp(−Bs²)
+    # once, and its phase sums are one matrix product (reflections × atoms) @ (atoms × groups)
+    # with the occupancies. Element symbols (one or two ASCII letters) read as two bytes are
+    # one 16-bit number; with the charge's low byte it names the (element, charge) pair. A
+    # complex key sorts by real, then imaginary part: one np.unique finds the (pair, B) groups.
+    element_code = np.array(crystal.elements, dtype="S2").view(np.uint16).astype(float)
+    group_key = element_code * 256.0 + (crystal.charges & 255) + 1j * crystal.b_iso
+    _, first_atom, atom_group = np.unique(group_key, return_index=True, return_inverse=True)
+    n_groups = first_atom.shape[0]
+    occ_matrix = np.zeros((crystal.n_atoms, n_groups), dtype=np.float32)
+    occ_matrix[np.arange(crystal.n_atoms), atom_group.ravel()] = crystal.occupancy
+    atom_of_group = first_atom.tolist()
+    group_species = [scattering.species_name(crystal.elements[i], int(crystal.charges[i])) for i in atom_of_group]
+    names = tuple(dict.fromkeys(group_species))  # distinct species, a handful
+    column = [names.index(sp) for sp in group_species]
+    thermal = np.exp(np.multiply.outer(-s2, crystal.b_iso[first_atom]))  # exp(−Bs²), (n, groups)
+    amplitude = scattering.f0_table(names, np.sqrt(s2))[:, column] * thermal
+    imaginary = None
     if anomalous:
-        element_of_group = [crystal.elements[i] for i in first_atom]
-        fp = np.array([anomalous[e][0] for e in element_of_group])
-        fpp = np.array([anomalous[e][1] for e in element_of_group])
-        thermal = np.exp(-np.multiply.outer(s2, group_b))
+        fp, fpp = np.array([anomalous[crystal.elements[i]] for i in atom_of_group]).reshape(-1, 2).T
+        amplitude += thermal * fp
         imaginary = thermal * fpp
-        amplitude = amplitude + thermal * fp
+    per_group = np.ones(n_groups)
     f2 = np.empty(hkl.shape[0])
     frac_t = crystal.frac.T.copy()
     hkl_f = hkl.astype(float)
-    occ32 = occ_matrix.astype(np.float32)
     step = max(1, _BLOCK // max(1, crystal.n_atoms))
     for start in range(0, hkl.shape[0], step):
         rows = slice(start, start + step)
@@ -174,14 +183,14 @@ def structure_factors(
         # Single-precision trigonometry (vectorised by numpy, ~10× faster than float64) on the
         # reduced angle: phase errors ≤ 1e-6 rad, i.e. relative |F| errors ≤ 1e-6 per atom.
         angle = (2.0 * np.pi * cycles).astype(np.float32)
-        cos_sum = (np.cos(angle) @ occ32).astype(float)  # (b, groups)
-        sin_sum = (np.sin(angle) @ occ32).astype(float)
-        a_re = np.sum(amplitude[rows] * cos_sum, axis=1)
-        a_im = np.sum(amplitude[rows] * sin_sum, axis=1)
+        cos_sum = np.cos(angle) @ occ_matrix  # (b, groups), single precision
+        sin_sum = np.sin(angle) @ occ_matrix
+        a_re = (amplitude[rows] * cos_sum) @ per_group  # products in double precision
+        a_im = (amplitude[rows] * sin_sum) @ per_group
         f2[rows] = a_re * a_re + a_im * a_im
-        if anomalous:
-            b_re = np.sum(imaginary[rows] * cos_sum, axis=1)
-            b_im = np.sum(imaginary[rows] * sin_sum, axis=1)
+        if imaginary is not None:
+            b_re = (imaginary[rows] * cos_sum) @ per_group
+            b_im = (imaginary[rows] * sin_sum) @ per_group
             f2[rows] += b_re * b_re + b_im * b_im
     return f2
 
@@ -233,5 +242,6 @@ def compute_reflections(
     keep = strength >= relative_cutoff * strength.max() if len(strength) else np.zeros(0, dtype=bool)
     d = 1.0 / np.sqrt(inv_d2[keep])
     rep, mult, f2 = rep[keep], mult[keep], f2[keep]
-    order = np.lexsort((-rep[:, 2], -rep[:, 1], -rep[:, 0], -np.round(d, 9)))
+    neg = -rep
+    order = np.lexsort((neg[:, 2], neg[:, 1], neg[:, 0], -np.round(d, 9)))
     return PatternLines(d=d[order], hkl=rep[order], multiplicity=mult[order], f2=f2[order])

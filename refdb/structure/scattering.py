@@ -2,7 +2,8 @@
 
 * f0(s), s = sinθ/λ = 1/(2d) in Å⁻¹: Waasmaier & Kirfel (1995), Acta Cryst. A51, 416–431,
   five-Gaussian fits to International Tables Vol. C Tables 6.1.1.1 (atoms) and 6.1.1.3 (ions),
-  as shipped by xraydb. Coefficients are read once per species and evaluated with numpy.
+  as shipped by xraydb. Coefficients are read once per species (cached for the process) and
+  evaluated with numpy.
 * f′, f″: Chantler (1995), J. Phys. Chem. Ref. Data 24, 71 (NIST FFAST), via
   ``xraydb.f1_chantler`` / ``xraydb.f2_chantler`` (which return the anomalous parts only).
 * Atomic masses: xraydb's element table (IUPAC standard atomic weights).
@@ -89,12 +90,24 @@ def f0(species: str, s: np.ndarray | float) -> np.ndarray:
     return c + np.exp(-np.multiply.outer(s * s, b)) @ a
 
 
+@functools.lru_cache(maxsize=None)
+def _six_terms(species: str) -> tuple[float, ...]:
+    """a1…a5, c, b1…b5, 0: the fit as six Gaussians, the constant c being one with b = 0."""
+    c, a, b = _coefficients(species)
+    return (*a.tolist(), c, *b.tolist(), 0.0)
+
+
 def f0_table(species: tuple[str, ...], s: np.ndarray) -> np.ndarray:
-    """f0 of several species at the same s values, shape (len(s), len(species))."""
-    out = np.empty((s.shape[0], len(species)))
-    for j, sp in enumerate(species):  # a handful of species, each evaluated on all s at once
-        out[:, j] = f0(sp, s)
-    return out
+    """f0 of several species at the same s values, shape (len(s), len(species)).
+
+    All species are evaluated together as f0 = Σ_t a_t·exp(−b_t s²) over six terms (the
+    constant c is the sixth, with b = 0); their coefficients come from the per-species cache.
+    """
+    table = np.array([_six_terms(sp) for sp in species]).reshape(-1, 12)  # a handful of rows
+    s = np.asarray(s, dtype=float)
+    terms = np.exp(np.multiply.outer(-(s * s), table[:, 6:])) * table[:, :6]  # (n, species, 6)
+    # The sum over six terms as a product with ones (numpy's reduction is slow on short axes).
+    return (terms.reshape(-1, 6) @ np.ones(6)).reshape(s.shape[0], len(species))
 
 
 @functools.lru_cache(maxsize=None)
