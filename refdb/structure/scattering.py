@@ -17,6 +17,8 @@ import json
 import numpy as np
 import xraydb
 
+from refdb.errors import InputError
+
 #: h·c/e in eV·Å from the exact SI values of h, c and e (2019 SI).
 HC_EV_ANGSTROM = 6.62607015e-34 * 299792458.0 / 1.602176634e-19 * 1e10
 
@@ -112,9 +114,19 @@ def f0_table(species: tuple[str, ...], s: np.ndarray) -> np.ndarray:
 
 @functools.lru_cache(maxsize=None)
 def anomalous_terms(element: str, energy_ev: float) -> tuple[float, float]:
-    """(f′, f″) in electrons of a neutral atom at a photon energy in eV (Chantler tables)."""
+    """(f′, f″) in electrons of a neutral atom at a photon energy in eV (Chantler tables).
+
+    Raises
+    ------
+    InputError
+        The element is beyond the tables (xraydb's Chantler data stop at U, Z = 92).
+    """
     el = chemical_element(element)
-    return float(xraydb.f1_chantler(el, energy_ev)), float(xraydb.f2_chantler(el, energy_ev))
+    try:
+        return float(xraydb.f1_chantler(el, energy_ev)), float(xraydb.f2_chantler(el, energy_ev))
+    except (IndexError, KeyError, ValueError):
+        raise InputError(f"no anomalous scattering data for {el} (the Chantler tables in xraydb stop at U)",
+                         "compute the pattern without anomalous terms") from None
 
 
 def energy_ev(wavelength: float) -> float:

@@ -170,6 +170,17 @@ def test_anomalous_terms_change_f2_of_a_copper_structure():
     assert 0.75 < ratio[0] < 0.9
 
 
+def test_anomalous_terms_beyond_the_tables_are_a_clear_error():
+    """xraydb's Chantler tables end at uranium (Z = 92; from the xraydb data, tried here): a
+    neptunium structure with anomalous terms is refused in one line, not with a traceback."""
+    from refdb.errors import InputError
+
+    crystal = read_crystal(cubic(3.52, "I m -3 m", [("Np1", "Np", 0, 0, 0)]))
+    with pytest.raises(InputError, match="no anomalous scattering data for Np"):
+        compute_reflections(crystal, anomalous_radiation=radiation_for("Cu"))
+    assert compute_reflections(crystal).d.size > 0
+
+
 def test_displacement_parameter_damps_high_angle_lines():
     """Debye–Waller factor exp(−2B s²) on |F|² for a one-atom structure (ITC Vol. C §6.1.3)."""
     cold = compute_reflections(read_crystal(cubic(4.0, "F m -3 m", [("Al1", "Al", 0, 0, 0, 1.0, 0.0)])))
