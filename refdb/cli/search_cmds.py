@@ -6,7 +6,9 @@ stem), ``name``, ``formula``, ``space_group``, ``score`` (0–100) and ``compone
 :mod:`refdb.match.score`), plus the fitted ``zero_shift``, ``displacement`` and ``d_scale``,
 ``n_matched``, ``n_expected``, ``matched`` pairs and ``equivalents`` — and ``source``,
 ``n_considered``, ``n_entries``, ``filters``, ``radiation``, ``two_theta_range``,
-``d_range``, ``n_peaks``, ``profile_checked``, ``library_stamp``, ``notes`` and ``caution``.
+``d_range``, ``n_peaks``, ``profile_checked``, ``n_tied`` (leading candidates the data
+cannot tell apart, see :func:`refdb.match.search.tied_leaders`), ``library_stamp``, ``notes``
+and ``caution``.
 """
 
 from __future__ import annotations
@@ -139,7 +141,8 @@ def candidates_table(result, source: str) -> Table:
         comp = c.components
         name = c.name + (f" (+{len(c.equivalents)} equivalent)" if c.equivalents else "")
         t.add_row(
-            str(k), str(c.entry_id), c.source_id, name, c.formula, c.space_group or "",
+            f"{k}=" if result.n_tied > 1 and k <= result.n_tied else str(k),
+            str(c.entry_id), c.source_id, name, c.formula, c.space_group or "",
             f"{c.score:.1f}", f"{comp.expected_found:.2f}", f"{comp.observed_explained:.2f}",
             f"{comp.position:.2f}", f"{comp.intensity_agreement:.2f}",
             "" if comp.profile_correlation is None else f"{comp.profile_correlation:.2f}",
@@ -153,7 +156,7 @@ def _caption(result) -> str:
     return (
         "found: share of the expected line intensity observed; explained: share of the observed "
         "intensity the entry accounts for; lines: matched/expected; profile: correlation with the "
-        "net scan (leading candidates)."
+        "net scan (leading candidates); #: '=' marks leading candidates the data cannot tell apart."
     )
 
 

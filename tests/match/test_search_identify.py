@@ -129,3 +129,21 @@ def test_same_phase_at_two_temperatures_is_one_phase(tmp_path):
     lib.close()
     assert _same_phase(index, ids[0], ids[1])
     assert not _same_phase(index, ids[0], ids[2])
+
+
+def test_enantiomorphs_are_one_phase(tmp_path):
+    """Tellurium in P3₁21 (COD 1011098) and in P3₂21 (COD 9008580): mirror images, whose powder
+    patterns are identical (Friedel's law; common practice, no source), so one phase."""
+    if not (STRUCTURES / "MANIFEST.tsv").is_file():
+        pytest.skip("the shared structure set (../shared/data/structures) is not beside this checkout")
+    from refdb.library import open_library
+    from refdb.match.index import load_index
+    from refdb.structure import reference_from_cif
+
+    lib = open_library(str(tmp_path / "te.sqlite"), create=True)
+    refs = [reference_from_cif(STRUCTURES / f"{c}.cif") for c in ("1011098", "9008580")]
+    ids = [lib.add(r).entry_id for r in refs]
+    index = load_index(lib)
+    lib.close()
+    assert {r.sg_number for r in refs} == {152, 154}
+    assert _same_phase(index, ids[0], ids[1])

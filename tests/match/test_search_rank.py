@@ -83,3 +83,15 @@ def test_bad_peak_lists_are_input_errors(bad):
 def test_top_must_be_positive():
     with pytest.raises(InputError):
         search(entry_peaks(BASE, 3), INDEX, top=0)
+
+
+def test_identical_lines_in_another_space_group_are_reported_as_tied():
+    """Entry 9002 has TARGET's lines under another space group: the peaks cannot tell the two
+    apart, so the search says the leaders are tied (and a unique match is not)."""
+    res = search(entry_peaks(BASE, TARGET), INDEX, top=5)
+    ids = [c.entry_id for c in res.candidates]
+    assert res.n_tied >= 2 and 9002 in ids[: res.n_tied]
+    assert any("cannot tell them apart" in n for n in res.notes)
+    assert res.to_dict()["n_tied"] == res.n_tied
+    lone = search(entry_peaks(BASE, 11, jitter=0.01), INDEX, top=5)
+    assert lone.n_tied == 1 and not any("cannot tell" in n for n in lone.notes)
