@@ -87,7 +87,7 @@ def _fit_until_significant(center: np.ndarray, height: np.ndarray, fwhm: float, 
             if keep.all():
                 return res, dropped
             if center.size == 1:
-                return None, dropped + 1
+                return _fixed_shape_single(res, fwhm, setup, min_significance, dropped)
             if not keep.any():
                 keep[np.argmax(sig)] = True
         dropped += int((~keep).sum())
@@ -101,6 +101,22 @@ def _fit_until_significant(center: np.ndarray, height: np.ndarray, fwhm: float, 
     fields = {f: getattr(res, f)[good] for f in ("center", "area", "height", "fwhm", "eta", "u_center", "u_area",
                                                "u_height", "u_fwhm")}
     return dataclasses.replace(res, **fields), dropped + int((~good).sum())
+
+
+def _fixed_shape_single(res: GroupResult, fwhm: float, setup: FitSetup, min_significance: float,
+                        dropped: int) -> tuple[GroupResult | None, int]:
+    """A lone peak that fell short with a free shape, fitted again with the typical FWHM and
+    eta = 0.5; kept when significant then.
+
+    With a few points per FWHM (a sharp line at low angle), a free width and eta trade off
+    against the height and inflate its uncertainty: a clear reflection can look insignificant
+    although its counts stand far above the noise.
+    """
+    refit = fit_group(res.center, res.height, np.array([fwhm]), setup, eta0=np.array([0.5]),
+                      fixed_shape=np.array([True]), span=(res.lo, res.hi))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        ok = bool(refit.u_height[0] > 0 and refit.height[0] >= min_significance * refit.u_height[0])
+    return (refit, dropped) if ok else (None, dropped + 1)
 
 
 def fit_all(tt: np.ndarray, h: np.ndarray, fwhm: float, setup: FitSetup,
