@@ -358,6 +358,7 @@ def decompose(
     chi2_now = fit.chi2 if fit else ctx.chi2_background_only()
 
     n_std = 0 if std_index is None else 1
+    final_no: set[int] = set()  # turned down on a refined fit: not tried again
     rnd = 0
     while len(refs) - n_std < max_phases:
         rnd += 1
@@ -371,7 +372,10 @@ def decompose(
             background=np.clip(np.minimum(ctx.background, rest.counts), 0.0, None) if fit is None else
             np.clip(fit.background, 0.0, None),
         )
-        cands = [c for c in result.candidates if c.entry_id not in taken and c.entry_id not in rejected][
+        # A candidate whose scale-only gain fell short may be tried again once the fit has
+        # changed (a shift refined with a wrong first phase can hide a real one); one turned
+        # down on its refined fit or its lines is not.
+        cands = [c for c in result.candidates if c.entry_id not in taken and c.entry_id not in final_no][
             :candidates_per_round
         ]
         if not cands:
@@ -385,7 +389,14 @@ def decompose(
             st = PhaseStart(zero_shift=c.zero_shift, displacement=c.displacement, d_scale=1.0 + c.d_scale)
             if fit is not None and fit.phases:  # the specimen's shift is shared and already refined
                 st = replace(st, zero_shift=fit.phases[0].zero_shift, displacement=fit.phases[0].displacement)
-            trials.append((ctx.gain_with(fit, chi2_now, ref, st), c, ref, st))
+            gain = ctx.gain_with(fit, chi2_now, ref, st)
+            if fit is not None and fit.phases:
+                # also at the candidate's own shift, in case the shared one is off
+                own = replace(st, zero_shift=c.zero_shift, displacement=c.displacement)
+                gain_own = ctx.gain_with(fit, chi2_now, ref, own, own_shift=True)
+                if gain_own > gain:
+                    gain, st = gain_own, own
+            trials.append((gain, c, ref, st))
         trials.sort(key=lambda t: -t[0])
         # Refine the leading trials in groups of REFINED_PER_ROUND and keep the passing one with
         # the lowest χ²: scale-only gains rank candidates roughly, and an isostructural entry
@@ -409,10 +420,12 @@ def decompose(
                 verdict = ctx.judge(trial_fit, refs + [ref], len(refs), chi2_now)
                 if not verdict.ok:
                     rejected[c.entry_id] = Rejection(c.name, c.formula, c.entry_id, verdict.reason)
+                    final_no.add(c.entry_id)
                 elif best is None or trial_fit.chi2 < best[0].chi2:
                     best = (trial_fit, verdict, c, ref, st)
             if best is not None:
                 trial_fit, verdict, c, ref, st = best
+                rejected.pop(c.entry_id, None)  # turned down in an earlier round for a low gain
                 refs.append(ref)
                 starts = _carry(trial_fit, starts + [st])
                 evidence.append(verdict.evidence(c.score, rnd))
@@ -587,10 +600,12 @@ class _Context:
     def _unit_columns(self, fit: RefinementResult) -> list[np.ndarray]:
         return [p.profile / p.scale if p.scale > 0 else np.zeros_like(p.profile) for p in fit.phases]
 
-    def gain_with(self, fit: RefinementResult | None, chi2_now: float, ref, start: PhaseStart) -> float:
-        """Δχ²/max(GoF, 1) from adding ``ref`` to ``fit`` with the other phases' profiles fixed."""
+    def gain_with(self, fit: RefinementResult | None, chi2_now: float, ref, start: PhaseStart, *,
+                  own_shift: bool = False) -> float:
+        """Δχ²/max(GoF, 1) from adding ``ref`` to ``fit`` with the other phases' profiles fixed,
+        at the specimen's refined shift (or at ``start``'s own with ``own_shift``)."""
         cols = self._unit_columns(fit) if fit is not None else []
-        shift = fit.phases[0] if fit is not None and fit.phases else start
+        shift = fit.phases[0] if fit is not None and fit.phases and not own_shift else start
         cols.append(phase_profile(
             ref, self.scan.two_theta, self.scan.radiation, zero_shift=shift.zero_shift,
             displacement=shift.displacement, d_scale=start.d_scale, caglioti=self.caglioti, eta=self.eta,
