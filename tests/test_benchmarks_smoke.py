@@ -14,14 +14,14 @@ import pytest
 
 BENCHMARKS = Path(__file__).resolve().parents[1] / "benchmarks"
 SHARED = Path(__file__).resolve().parents[2] / "shared" / "data" / "structures"
-NEEDS_SHARED = {"bench_identification.py", "bench_mixtures.py", "bench_patterns.py"}
+NEEDS_SHARED = {"bench_identification.py", "bench_mixtures.py", "bench_patterns.py", "bench_batch.py"}
 
 SCRIPTS = sorted(p.name for p in BENCHMARKS.glob("bench_*.py"))
 
 
 def test_there_are_benchmarks():
     assert {"bench_patterns.py", "bench_peaks.py", "bench_search_speed.py", "bench_identification.py",
-            "bench_mixtures.py"} <= set(SCRIPTS)
+            "bench_mixtures.py", "bench_batch.py"} <= set(SCRIPTS)
 
 
 @pytest.mark.parametrize("script", SCRIPTS)

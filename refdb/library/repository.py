@@ -289,13 +289,10 @@ class Library:
                 rows = s.scalars(
                     select(Entry)
                     .where(Entry.id.in_(wanted))
-                    .options(
-                        selectinload(Entry.elements),
-                        selectinload(Entry.tags),
-                        selectinload(Entry.reflections),
-                    )
+                    .options(selectinload(Entry.elements), selectinload(Entry.tags))
                 ).all()
-                by_id = {r.id: _to_record(r) for r in rows}
+                lines = _lines_of(s, [r.id for r in rows])
+                by_id = {r.id: _to_record(r, lines.get(r.id)) for r in rows}
         except SQLAlchemyError as exc:
             raise self._guard(exc) from None
         return [by_id[i] for i in wanted if i in by_id]
@@ -623,19 +620,43 @@ def _reflection_rows(entry_id: int, lines: PatternLines) -> list[dict]:
     return rows
 
 
-def _to_record(r: Entry) -> ReferenceEntry:
-    refl = r.reflections
-    has_hkl = bool(refl) and all(x.h is not None for x in refl)
-    has_m = bool(refl) and all(x.multiplicity is not None for x in refl)
-    has_f2 = bool(refl) and all(x.f2 is not None for x in refl)
-    has_i = bool(refl) and all(x.intensity is not None for x in refl)
-    lines = PatternLines(
-        d=np.array([x.d for x in refl], dtype=float),
-        hkl=np.array([[x.h, x.k, x.l] for x in refl], dtype=int).reshape(-1, 3) if has_hkl else None,
-        multiplicity=np.array([x.multiplicity for x in refl], dtype=int) if has_m else None,
-        f2=np.array([x.f2 for x in refl], dtype=float) if has_f2 else None,
-        intensity=np.array([x.intensity for x in refl], dtype=float) if has_i else None,
-    )
+def _lines_of(s: Session, ids: list[int]) -> dict[int, PatternLines]:
+    """The reflections of these entries as arrays, read as plain rows (no ORM objects: an
+    entry has hundreds of reflections, and building an object for each was most of the time
+    of fetching entries)."""
+    if not ids:
+        return {}
+    rows = s.execute(
+        select(Reflection.entry_id, Reflection.d, Reflection.h, Reflection.k, Reflection.l,
+               Reflection.multiplicity, Reflection.f2, Reflection.intensity)
+        .where(Reflection.entry_id.in_(ids))
+        .order_by(Reflection.entry_id, Reflection.seq)
+    ).all()
+    if not rows:
+        return {}
+    # Column by column: NULL becomes NaN in a float array (a measured entry has no hkl).
+    cols = [np.array(c, dtype=float) for c in zip(*rows, strict=True)]
+    owner = cols[0].astype(np.int64)
+    hkl_all = np.column_stack(cols[2:5])
+    firsts = np.flatnonzero(np.r_[True, owner[1:] != owner[:-1]])
+    out = {}
+    for a, b in zip(firsts, np.r_[firsts[1:], owner.size], strict=True):
+
+        def col(j: int, dtype, a=a, b=b):
+            v = cols[j][a:b]
+            return v.astype(dtype) if not np.isnan(v).any() else None
+
+        hkl = hkl_all[a:b]
+        out[int(owner[a])] = PatternLines(
+            d=cols[1][a:b].copy(), hkl=None if np.isnan(hkl).any() else hkl.astype(int),
+            multiplicity=col(5, int), f2=col(6, float), intensity=col(7, float),
+        )
+    return out
+
+
+def _to_record(r: Entry, lines: PatternLines | None) -> ReferenceEntry:
+    if lines is None:  # an entry without reflections
+        lines = PatternLines(d=np.zeros(0), hkl=None, multiplicity=None, f2=None, intensity=None)
     cell = None if r.a is None else (r.a, r.b, r.c, r.alpha, r.beta, r.gamma)
     return ReferenceEntry(
         id=r.id,
