@@ -159,3 +159,29 @@ def test_bad_grid_and_eta_are_input_errors(cscl):
         draw_profile(cscl, rad, np.arange(10, 20, 0.1), eta=1.5)
     with pytest.raises(InputError):
         stick_pattern(cscl, rad, two_theta_range=(90, 10))
+
+
+@settings(max_examples=30, deadline=None)
+@given(
+    centers=st.lists(st.floats(12.0, 78.0), min_size=1, max_size=12),
+    width=st.floats(0.03, 0.4),
+    eta=st.floats(0.0, 1.0),
+)
+def test_windowed_profile_sum_matches_the_full_pseudo_voigt(centers, width, eta):
+    """sum_profiles (windowed: Lorentzian part ±40 FWHM, Gaussian part ±4 FWHM) against the
+    pseudo-Voigt evaluated on the whole grid, written out here (Gaussian and Lorentzian of
+    equal FWHM, the usual definition; common practice, no source)."""
+    from refdb.structure.pattern import sum_profiles
+
+    grid = np.arange(10.0, 80.0, 0.01)
+    c = np.array(centers)
+    areas = np.linspace(1.0, 3.0, c.size)
+    dx = (grid[None, :] - c[:, None]) / width
+    gauss = 2.0 * np.sqrt(np.log(2.0) / np.pi) / width * np.exp(-4.0 * np.log(2.0) * dx**2)
+    lor = 2.0 / (np.pi * width) / (1.0 + 4.0 * dx**2)
+    full = (areas[:, None] * (eta * lor + (1.0 - eta) * gauss)).sum(axis=0)
+    got = sum_profiles(grid, c, areas, np.full(c.size, width), eta)
+    # What the windows leave out: the Lorentzian beyond ±40 FWHM, at most 1/(1 + 4·40²) of a
+    # line's height at each point (plus rounding); the Gaussian beyond ±4 FWHM is < 1e-19.
+    height = areas.sum() * (2.0 / (np.pi * width))
+    assert np.max(np.abs(got - full)) <= eta * height / (1.0 + 4.0 * 40.0**2) + 1e-9 * height
