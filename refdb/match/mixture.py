@@ -89,6 +89,7 @@ from refdb.match.refine import (
 from refdb.radiation import Radiation
 from refdb.records import ReferenceEntry
 from refdb.report.caution import CAUTION
+from refdb.scan.profile_fit import line_centers
 from refdb.scan.types import PeakList, Scan
 
 #: Parameters a phase adds to the model (scale, d-scale, width factor).
@@ -390,15 +391,14 @@ def decompose(
             if ref is None:
                 continue
             st = PhaseStart(zero_shift=c.zero_shift, displacement=c.displacement, d_scale=1.0 + c.d_scale)
-            if fit is not None and fit.phases:  # the specimen's shift is shared and already refined
-                st = replace(st, zero_shift=fit.phases[0].zero_shift, displacement=fit.phases[0].displacement)
             gain = ctx.gain_with(fit, chi2_now, ref, st)
             if fit is not None and fit.phases:
-                # also at the candidate's own shift, in case the shared one is off
-                own = replace(st, zero_shift=c.zero_shift, displacement=c.displacement)
-                gain_own = ctx.gain_with(fit, chi2_now, ref, own, own_shift=True)
-                if gain_own > gain:
-                    gain, st = gain_own, own
+                # The specimen's shift is shared and already refined: prefer it, unless the
+                # candidate's own fitted shift does better (the shared one can be off).
+                shared = replace(st, zero_shift=fit.phases[0].zero_shift, displacement=fit.phases[0].displacement)
+                gain_shared = ctx.gain_with(fit, chi2_now, ref, shared)
+                if gain_shared >= gain:
+                    gain, st = gain_shared, shared
             trials.append((gain, c, ref, st))
         trials.sort(key=lambda t: -t[0])
         # Refine the leading trials in groups of REFINED_PER_ROUND and keep the passing one with
@@ -603,15 +603,13 @@ class _Context:
     def _unit_columns(self, fit: RefinementResult) -> list[np.ndarray]:
         return [p.profile / p.scale if p.scale > 0 else np.zeros_like(p.profile) for p in fit.phases]
 
-    def gain_with(self, fit: RefinementResult | None, chi2_now: float, ref, start: PhaseStart, *,
-                  own_shift: bool = False) -> float:
-        """Δχ²/max(GoF, 1) from adding ``ref`` to ``fit`` with the other phases' profiles fixed,
-        at the specimen's refined shift (or at ``start``'s own with ``own_shift``)."""
+    def gain_with(self, fit: RefinementResult | None, chi2_now: float, ref, start: PhaseStart) -> float:
+        """Δχ²/max(GoF, 1) from adding ``ref`` at ``start`` (shift and d-scale) to ``fit``, the
+        other phases' profiles fixed."""
         cols = self._unit_columns(fit) if fit is not None else []
-        shift = fit.phases[0] if fit is not None and fit.phases and not own_shift else start
         cols.append(phase_profile(
-            ref, self.scan.two_theta, self.scan.radiation, zero_shift=shift.zero_shift,
-            displacement=shift.displacement, d_scale=start.d_scale, caglioti=self.caglioti, eta=self.eta,
+            ref, self.scan.two_theta, self.scan.radiation, zero_shift=start.zero_shift,
+            displacement=start.displacement, d_scale=start.d_scale, caglioti=self.caglioti, eta=self.eta,
         ))
         return (chi2_now - self._solve(np.column_stack(cols), fit)) / self.gof_floor(fit)
 
@@ -709,8 +707,7 @@ def _check_lines(fit: RefinementResult, p: int, radiation: Radiation) -> _LineCh
     x = fit.two_theta
     net_calc = fit.calculated - fit.background
     net = fit.observed - (fit.calculated - prof)
-    interior = (prof[1:-1] > prof[:-2]) & (prof[1:-1] >= prof[2:])
-    tops = np.flatnonzero(interior) + 1
+    tops = _line_tops(prof)
     if tops.size == 0:
         return _LineCheck(0, 0, True, 0)
     tops = tops[np.argsort(-prof[tops])]
@@ -728,8 +725,8 @@ def _check_lines(fit: RefinementResult, p: int, radiation: Radiation) -> _LineCh
             break
         if np.any(np.abs(satellites - x[i]) <= half_pts * step):
             continue
-        sin_t = np.sin(np.radians(x[i]) / 2.0) * ratios
-        satellites = np.concatenate([satellites, 2.0 * np.degrees(np.arcsin(sin_t[sin_t < 1.0]))])
+        sat = line_centers(np.array([x[i]]), ratios)[0][0]
+        satellites = np.concatenate([satellites, sat[np.isfinite(sat)]])
         rank += 1
         sl = slice(max(0, i - half_pts), i + half_pts + 1)
         pred = float(prof[sl].sum())
@@ -853,10 +850,14 @@ def _visible_tops(fit: RefinementResult, *, exclude: int) -> np.ndarray:
     for q, ph in enumerate(fit.phases):
         if q == exclude:
             continue
-        prof = ph.profile
-        tops = np.flatnonzero((prof[1:-1] > prof[:-2]) & (prof[1:-1] >= prof[2:])) + 1
-        found.append(tops[prof[tops] >= 3.0 * fit.sigma[tops]])
+        tops = _line_tops(ph.profile)
+        found.append(tops[ph.profile[tops] >= 3.0 * fit.sigma[tops]])
     return np.concatenate(found)
+
+
+def _line_tops(prof: np.ndarray) -> np.ndarray:
+    """Grid indices of the local maxima of a calculated profile (its lines)."""
+    return np.flatnonzero((prof[1:-1] > prof[:-2]) & (prof[1:-1] >= prof[2:])) + 1
 
 
 def _typical_fwhm(fit: RefinementResult) -> float:
