@@ -456,18 +456,12 @@ class Library:
                     select(EntryTag.entry_id, EntryTag.tag).order_by(EntryTag.entry_id, EntryTag.tag)
                 ):
                     tags.setdefault(eid, []).append(tag)
-                refl = s.execute(
-                    select(
-                        Reflection.entry_id, Reflection.d, Reflection.multiplicity,
-                        Reflection.f2, Reflection.intensity,
-                    ).order_by(Reflection.entry_id, Reflection.seq)
-                ).all()
+                cols = _reflection_columns(s, (Reflection.d, Reflection.multiplicity, Reflection.f2,
+                                               Reflection.intensity))
                 stamp = _stamp_in(s)
         except SQLAlchemyError as exc:
             raise self._guard(exc) from None
         ids = np.array([e.id for e in entries], dtype=np.int64)
-        # Columns of the reflection rows; NULL becomes NaN in float columns.
-        cols = [np.array(c, dtype=float) for c in zip(*refl, strict=True)] if refl else [np.zeros(0)] * 5
         r_entry = np.searchsorted(ids, cols[0]).astype(np.int32)  # rows are ordered by entry id
         r_d = cols[1]
         r_m = np.nan_to_num(cols[2], nan=0.0).astype(np.int32)
@@ -620,36 +614,37 @@ def _reflection_rows(entry_id: int, lines: PatternLines) -> list[dict]:
     return rows
 
 
+def _reflection_columns(s: Session, fields: tuple, ids: list[int] | None = None) -> list[np.ndarray]:
+    """Entry id and ``fields`` of the reflections (of ``ids``, else of every entry), in entry and
+    line order, as float arrays read from plain rows (no ORM object per reflection); NULL
+    becomes NaN."""
+    q = select(Reflection.entry_id, *fields)
+    if ids is not None:
+        q = q.where(Reflection.entry_id.in_(ids))
+    rows = s.execute(q.order_by(Reflection.entry_id, Reflection.seq)).all()
+    if not rows:
+        return [np.zeros(0) for _ in range(len(fields) + 1)]
+    return [np.array(c, dtype=float) for c in zip(*rows, strict=True)]
+
+
 def _lines_of(s: Session, ids: list[int]) -> dict[int, PatternLines]:
-    """The reflections of these entries as arrays, read as plain rows (no ORM objects: an
-    entry has hundreds of reflections, and building an object for each was most of the time
-    of fetching entries)."""
+    """The reflections of these entries as arrays (a measured entry has no hkl: NaN there)."""
     if not ids:
         return {}
-    rows = s.execute(
-        select(Reflection.entry_id, Reflection.d, Reflection.h, Reflection.k, Reflection.l,
-               Reflection.multiplicity, Reflection.f2, Reflection.intensity)
-        .where(Reflection.entry_id.in_(ids))
-        .order_by(Reflection.entry_id, Reflection.seq)
-    ).all()
-    if not rows:
-        return {}
-    # Column by column: NULL becomes NaN in a float array (a measured entry has no hkl).
-    cols = [np.array(c, dtype=float) for c in zip(*rows, strict=True)]
+    cols = _reflection_columns(s, (Reflection.d, Reflection.h, Reflection.k, Reflection.l,
+                                   Reflection.multiplicity, Reflection.f2, Reflection.intensity), ids)
     owner = cols[0].astype(np.int64)
-    hkl_all = np.column_stack(cols[2:5])
+    if owner.size == 0:
+        return {}
     firsts = np.flatnonzero(np.r_[True, owner[1:] != owner[:-1]])
     out = {}
     for a, b in zip(firsts, np.r_[firsts[1:], owner.size], strict=True):
-
-        def col(j: int, dtype, a=a, b=b):
-            v = cols[j][a:b]
-            return v.astype(dtype) if not np.isnan(v).any() else None
-
-        hkl = hkl_all[a:b]
+        part = [c[a:b].copy() for c in cols]
+        complete = [not np.isnan(c).any() for c in part]
         out[int(owner[a])] = PatternLines(
-            d=cols[1][a:b].copy(), hkl=None if np.isnan(hkl).any() else hkl.astype(int),
-            multiplicity=col(5, int), f2=col(6, float), intensity=col(7, float),
+            d=part[1], hkl=np.column_stack(part[2:5]).astype(int) if all(complete[2:5]) else None,
+            multiplicity=part[5].astype(int) if complete[5] else None,
+            f2=part[6] if complete[6] else None, intensity=part[7] if complete[7] else None,
         )
     return out
 
