@@ -28,6 +28,18 @@ def check_plot_path(path: str | Path) -> Path:
     if not out.parent.exists():
         raise InputError(f"folder {out.parent} does not exist")
     return out
+
+
+def agg_pyplot():
+    """matplotlib's pyplot on the Agg backend: plots go to files, no display is needed."""
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    return plt
+
+
 #: At most this many peaks get a text label (the strongest); all get a marker.
 MAX_LABELS = 40
 
@@ -60,10 +72,7 @@ def plot_peak_search(scan: Scan, result: PeakSearch, path: str | Path, *, title:
         Unsupported suffix or a folder that does not exist.
     """
     out = check_plot_path(path)
-    import matplotlib
-
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
+    plt = agg_pyplot()
 
     peaks = result.peaks
     fig, (top, bottom) = plt.subplots(

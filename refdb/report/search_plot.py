@@ -7,7 +7,7 @@ from pathlib import Path
 import numpy as np
 
 from refdb.report.caution import CAUTION_SHORT
-from refdb.report.peaks_plot import check_plot_path
+from refdb.report.peaks_plot import agg_pyplot, check_plot_path
 from refdb.scan.types import PeakList, Scan
 
 #: Colour-blind-safe qualitative colours (Okabe & Ito 2008, "Color Universal Design").
@@ -47,10 +47,7 @@ def plot_search(scan: Scan, peaks: PeakList, result, path: str | Path, *, count:
         Unsupported suffix or a folder that does not exist.
     """
     out = check_plot_path(path)
-    import matplotlib
-
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
+    plt = agg_pyplot()
 
     cands = list(result.candidates[: max(1, min(count, len(COLOURS)))])
     n = max(len(cands), 1)
