@@ -5,8 +5,9 @@ the Kα1 position by Bragg's law, ``sin θ_l = (λ_l/λ_1) sin θ_1``, and their
 radiation's weights, so a Kα2 component is never a free peak. All lines of a peak share one
 FWHM and one Lorentzian fraction (the small wavelength dispersion of the width is neglected;
 common practice, no source). Under each group the background is a free straight line, started
-from the estimated background at the window's ends (see :func:`_edge_line`). The fit minimises Σ((model − counts)/σ)² with scipy.optimize.least_squares
-(trust-region reflective, bounded), using the analytical Jacobian below.
+from the estimated background at the window's ends (see :func:`_edge_line`). The fit minimises
+Σ((model − counts)/σ)² with the bounded Levenberg–Marquardt solver of :mod:`refdb.lm`, using the
+analytical Jacobian below.
 
 Standard uncertainties come from the covariance ``s²(JᵀJ)⁻¹`` with ``s² = χ²/(m − p)``
 (Press, Teukolsky, Vetterling & Flannery, Numerical Recipes, 3rd ed., §15.4).
@@ -17,8 +18,8 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.optimize import least_squares
 
+from refdb.lm import bounded_lm
 from refdb.profiles import pseudo_voigt, pv_height_factor
 
 _LN2 = np.log(2.0)
@@ -208,28 +209,19 @@ def fit_group(center0: np.ndarray, height0: np.ndarray, fwhm0: np.ndarray, setup
         p0[2 * k + fixed] = fwhm0[fixed]
         p0[3 * k + fixed] = eta0[fixed]
 
-    # trf asks for the Jacobian at the point whose residual it has just accepted; computing
-    # both together and keeping the last Jacobian saves evaluating the profiles twice.
-    last: dict[str, np.ndarray] = {}
-
     def full(q: np.ndarray) -> np.ndarray:
         p = p0.copy()
         p[free] = q
         return p
 
-    def residual(q: np.ndarray) -> np.ndarray:
+    def residual_jac(q: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         model, jac = _profiles(x, full(q), k, setup, True)
-        last["q"], last["jac"] = q.copy(), jac
-        return (model + bkg - y) / s
-
-    def jacobian(q: np.ndarray) -> np.ndarray:
-        jac = last["jac"] if np.array_equal(q, last.get("q")) else _profiles(x, full(q), k, setup, True)[1]
-        return jac[:, free] / s[:, None]
+        return (model + bkg - y) / s, jac[:, free] / s[:, None]
 
     # Tolerances 1e-6 (relative) stop far below the statistical uncertainties of the
     # parameters (≥ 1e-4 relative for any peak worth reporting) and halve the iterations.
-    fit = least_squares(residual, p0[free], jac=jacobian, bounds=(lower[free], upper[free]), x_scale="jac",
-                        ftol=1e-6, xtol=1e-6, gtol=1e-6, max_nfev=60 * k + 100)
+    fit = bounded_lm(residual_jac, p0[free], lower[free], upper[free], ftol=1e-6, xtol=1e-6, gtol=1e-6,
+                     max_nfev=60 * k + 100)
     p = full(fit.x)
     c, a, w, eta, _, _ = _unpack(p, k)
     cov = np.zeros((p.size, p.size))
@@ -248,7 +240,7 @@ def fit_group(center0: np.ndarray, height0: np.ndarray, fwhm0: np.ndarray, setup
         center=c, area=a, height=a * hf, fwhm=w, eta=eta,
         u_center=np.sqrt(np.maximum(var[:k], 0.0)), u_area=np.sqrt(np.maximum(var[k : 2 * k], 0.0)),
         u_height=u_height, u_fwhm=np.sqrt(np.maximum(var[2 * k : 3 * k], 0.0)),
-        lo=int(lo), hi=int(hi), model=model, local_background=local, converged=bool(fit.success and fit.status > 0),
+        lo=int(lo), hi=int(hi), model=model, local_background=local, converged=fit.success,
         chi2=float(fit.fun @ fit.fun), n_free=int(free.sum()),
     )
 
