@@ -12,6 +12,7 @@ are small, and several BLAS threads per worker only fight over the cores.
 from __future__ import annotations
 
 import os
+from collections import OrderedDict
 from collections.abc import Callable, Iterable, Sequence
 from concurrent.futures import ProcessPoolExecutor, as_completed
 from dataclasses import dataclass, field
@@ -25,6 +26,8 @@ MODES: tuple[str, ...] = ("unmix", "search")
 
 #: The library and index a worker process opened, keyed by library URL.
 _WORKER_CACHE: dict[str, Any] = {}
+#: Most library entries a worker keeps in memory between scans.
+REMEMBERED_ENTRIES = 500
 
 
 @dataclass(frozen=True)
@@ -141,8 +144,43 @@ def _library(url: str | None):
         from refdb.match.index import load_index
 
         lib = open_library(url)
-        _WORKER_CACHE[key] = (lib, load_index(lib))
+        _WORKER_CACHE[key] = (_RememberedEntries(lib), load_index(lib))
     return _WORKER_CACHE[key]
+
+
+class _RememberedEntries:
+    """The library as :func:`refdb.match.mixture.decompose` reads it, keeping the entries it
+    has read: the scans of a batch mostly ask for the same few dozen common phases, and reading
+    an entry with its reflections costs milliseconds. At most :data:`REMEMBERED_ENTRIES` are
+    kept (least recently used go first). The library is taken not to change during a batch, so
+    its stamp is read once too; :func:`run_batch` starts every batch afresh.
+    """
+
+    def __init__(self, library) -> None:
+        self._library = library
+        self._entries: OrderedDict[int, Any] = OrderedDict()
+        self._stamp: str | None = None
+
+    def close(self) -> None:
+        self._library.close()
+
+    def stamp(self) -> str:
+        if self._stamp is None:
+            self._stamp = self._library.stamp()
+        return self._stamp
+
+    def get_many(self, ids: Iterable[int]) -> list:
+        wanted = [int(i) for i in ids]
+        missing = [i for i in dict.fromkeys(wanted) if i not in self._entries]
+        if missing:
+            for entry in self._library.get_many(missing):
+                self._entries[entry.id] = entry
+        for i in wanted:
+            if i in self._entries:
+                self._entries.move_to_end(i)
+        while len(self._entries) > REMEMBERED_ENTRIES:
+            self._entries.popitem(last=False)
+        return [self._entries[i] for i in wanted if i in self._entries]
 
 
 def run_batch(
@@ -178,7 +216,11 @@ def run_batch(
         except OSError as exc:
             raise InputError(f"cannot make the report folder {options.report_dir}: {exc.strerror}") from None
     # Open the library here first: a missing library fails once, and the search index is
-    # built (and cached) once before the workers read it.
+    # built (and cached) once before the workers read it. What an earlier batch in this
+    # process remembered is dropped: the library may have changed since.
+    earlier = _WORKER_CACHE.pop(options.library_url or "", None)
+    if earlier is not None:
+        earlier[0].close()
     _library(options.library_url)
     outcomes: dict[int, ScanOutcome] = {}
     if workers == 1 or len(paths) == 1:
