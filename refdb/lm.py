@@ -44,7 +44,7 @@ class LMResult:
     jac : ndarray, shape (m, p)
         Jacobian at ``x``.
     nfev : int
-        Evaluations of the residual and Jacobian.
+        Evaluations of the residual.
     status : int
         0 evaluation limit, 1–3 converged (see :data:`STATUS`).
     """
@@ -65,7 +65,8 @@ class LMResult:
 
 
 def bounded_lm(
-    fun_jac: Callable[[np.ndarray], tuple[np.ndarray, np.ndarray]],
+    residual: Callable[[np.ndarray], np.ndarray],
+    jacobian: Callable[[np.ndarray], np.ndarray],
     x0: np.ndarray,
     lower: np.ndarray,
     upper: np.ndarray,
@@ -79,14 +80,18 @@ def bounded_lm(
 
     Parameters
     ----------
-    fun_jac : callable
-        ``x → (r, J)``: residuals, shape (m,), and their Jacobian, shape (m, p).
+    residual : callable
+        ``x → r``, shape (m,).
+    jacobian : callable
+        ``x → J``, shape (m, p). Called only at accepted points, each time right after
+        ``residual`` was called at the same ``x`` (a caller computing both together can keep
+        the last Jacobian).
     x0 : ndarray, shape (p,)
         Start; moved into the box if outside.
     lower, upper : ndarray, shape (p,)
         Bounds (±inf allowed), lower < upper.
     max_nfev : int
-        Most evaluations of ``fun_jac``.
+        Most evaluations of ``residual``.
     ftol, xtol, gtol : float
         Relative stopping tolerances (module docstring).
 
@@ -97,7 +102,8 @@ def bounded_lm(
     lo = np.asarray(lower, float)
     hi = np.asarray(upper, float)
     x = np.clip(np.asarray(x0, float), lo, hi)
-    r, jac = fun_jac(x)
+    r = residual(x)
+    jac = jacobian(x)
     nfev = 1
     cost = float(r @ r)
     scale = np.zeros(x.size)
@@ -146,14 +152,15 @@ def bounded_lm(
             if predicted <= 0.0:
                 lam, nu = lam * nu, nu * 2.0
                 continue
-            r_new, jac_new = fun_jac(trial)
+            r_new = residual(trial)
             nfev += 1
             cost_new = float(r_new @ r_new)
             rho = (cost - cost_new) / predicted
             if rho > 1e-4:
                 accepted = True
                 reduction = cost - cost_new
-                x, r, jac, cost = trial, r_new, jac_new, cost_new
+                x, r, cost = trial, r_new, cost_new
+                jac = jacobian(x)
                 lam *= max(1.0 / 3.0, 1.0 - (2.0 * rho - 1.0) ** 3)
                 nu = 2.0
                 small_reduction = reduction <= ftol * cost_new

@@ -19,6 +19,11 @@ MISRA_B = np.array([2.3894212918e02, 5.5015643181e-04])  # certified
 MISRA_RSS = 1.2455138894e-01  # certified residual sum of squares
 
 
+def _split(fun_jac):
+    """Residual and Jacobian callables from one function giving both."""
+    return (lambda x: fun_jac(x)[0]), (lambda x: fun_jac(x)[1])
+
+
 def _misra(b):
     e = np.exp(-b[1] * MISRA_X)
     r = b[0] * (1.0 - e) - MISRA_Y
@@ -28,7 +33,7 @@ def _misra(b):
 
 @pytest.mark.parametrize("start", [(500.0, 1e-4), (250.0, 5e-4)])  # NIST's start 1 and start 2
 def test_misra1a_certified_values(start):
-    fit = bounded_lm(_misra, np.array(start), np.full(2, -np.inf), np.full(2, np.inf), max_nfev=500,
+    fit = bounded_lm(*_split(_misra), np.array(start), np.full(2, -np.inf), np.full(2, np.inf), max_nfev=500,
                      ftol=1e-15, xtol=1e-15, gtol=1e-15)
     # NIST asks for agreement to at least 4–6 significant digits for a good solver; 1e-7
     # relative is what double precision reaches on this well-conditioned problem.
@@ -45,18 +50,18 @@ def _rosenbrock(x):
 
 def test_rosenbrock_unbounded_and_with_an_active_bound():
     # Rosenbrock (1960, Comput. J. 3, 175): minimum 0 at (1, 1) from the classic start (−1.2, 1).
-    fit = bounded_lm(_rosenbrock, np.array([-1.2, 1.0]), np.full(2, -np.inf), np.full(2, np.inf),
+    fit = bounded_lm(*_split(_rosenbrock), np.array([-1.2, 1.0]), np.full(2, -np.inf), np.full(2, np.inf),
                      max_nfev=500, ftol=1e-15, xtol=1e-15, gtol=1e-15)
     np.testing.assert_allclose(fit.x, [1.0, 1.0], atol=1e-8)  # double precision on a zero-residual problem
     # With x1 ≤ 0.5 the constrained minimum (by hand: x2 = x1², cost (1 − x1)²) is (0.5, 0.25).
-    fit = bounded_lm(_rosenbrock, np.array([-1.2, 1.0]), np.array([-np.inf, -np.inf]), np.array([0.5, np.inf]),
+    fit = bounded_lm(*_split(_rosenbrock), np.array([-1.2, 1.0]), np.array([-np.inf, -np.inf]), np.array([0.5, np.inf]),
                      max_nfev=500, ftol=1e-15, xtol=1e-15, gtol=1e-15)
     np.testing.assert_allclose(fit.x, [0.5, 0.25], atol=1e-8)
     assert fit.fun @ fit.fun == pytest.approx(0.25, rel=1e-10)
 
 
 def test_evaluation_limit_is_reported():
-    fit = bounded_lm(_rosenbrock, np.array([-1.2, 1.0]), np.full(2, -np.inf), np.full(2, np.inf), max_nfev=3)
+    fit = bounded_lm(*_split(_rosenbrock), np.array([-1.2, 1.0]), np.full(2, -np.inf), np.full(2, np.inf), max_nfev=3)
     assert fit.nfev <= 3 and not fit.success and fit.status == 0
 
 
@@ -75,7 +80,7 @@ def test_box_constrained_linear_problems_match_scipy_lsq_linear(seed, m, p):
     lo = rng.uniform(-1.0, 0.0, p)
     hi = lo + rng.uniform(0.1, 2.0, p)
     ref = lsq_linear(a, b, bounds=(lo, hi), tol=1e-14, lsmr_tol="auto", method="bvls")
-    fit = bounded_lm(lambda x: (a @ x - b, a), (lo + hi) / 2.0, lo, hi, max_nfev=400, ftol=1e-14, xtol=1e-14,
+    fit = bounded_lm(lambda x: a @ x - b, lambda x: a, (lo + hi) / 2.0, lo, hi, max_nfev=400, ftol=1e-14, xtol=1e-14,
                      gtol=1e-12)
     assert np.all(fit.x >= lo) and np.all(fit.x <= hi)  # never leaves the box
     cost_ref = float(np.sum((a @ ref.x - b) ** 2))

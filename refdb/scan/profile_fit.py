@@ -214,13 +214,22 @@ def fit_group(center0: np.ndarray, height0: np.ndarray, fwhm0: np.ndarray, setup
         p[free] = q
         return p
 
-    def residual_jac(q: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    # The solver asks for the Jacobian right after the residual at the same point; both come
+    # from one evaluation of the profiles, and the last Jacobian is kept for that call.
+    last: dict[str, np.ndarray] = {}
+
+    def residual(q: np.ndarray) -> np.ndarray:
         model, jac = _profiles(x, full(q), k, setup, True)
-        return (model + bkg - y) / s, jac[:, free] / s[:, None]
+        last["q"], last["jac"] = q, jac
+        return (model + bkg - y) / s
+
+    def jacobian(q: np.ndarray) -> np.ndarray:
+        jac = last["jac"] if np.array_equal(q, last.get("q")) else _profiles(x, full(q), k, setup, True)[1]
+        return jac[:, free] / s[:, None]
 
     # Tolerances 1e-6 (relative) stop far below the statistical uncertainties of the
     # parameters (≥ 1e-4 relative for any peak worth reporting) and halve the iterations.
-    fit = bounded_lm(residual_jac, p0[free], lower[free], upper[free], ftol=1e-6, xtol=1e-6, gtol=1e-6,
+    fit = bounded_lm(residual, jacobian, p0[free], lower[free], upper[free], ftol=1e-6, xtol=1e-6, gtol=1e-6,
                      max_nfev=60 * k + 100)
     p = full(fit.x)
     c, a, w, eta, _, _ = _unpack(p, k)
