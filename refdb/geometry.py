@@ -38,6 +38,23 @@ def lorentz_polarisation(
         return pol / (np.sin(theta) ** 2 * np.cos(theta))
 
 
+def lorentz_polarisation_slope(
+    two_theta: np.ndarray | float, *, monochromator_two_theta: float | None = None
+) -> np.ndarray:
+    """d ln LP / d2θ of :func:`lorentz_polarisation`, per degree 2θ.
+
+    With φ = 2θ, c_M = cos²2θ_M (1 without a monochromator) and
+    ln LP = ln(1 + c_M cos²φ) − 2 ln sin θ − ln cos θ + const:
+    d ln LP/dφ = −c_M sin 2φ / (1 + c_M cos²φ) − cot θ + ½ tan θ (per radian of φ).
+    """
+    tt = np.radians(np.asarray(two_theta, dtype=float))
+    theta = tt / 2.0
+    cm = 1.0 if monochromator_two_theta is None else np.cos(np.radians(monochromator_two_theta)) ** 2
+    with np.errstate(divide="ignore", invalid="ignore"):
+        per_radian = -cm * np.sin(2.0 * tt) / (1.0 + cm * np.cos(tt) ** 2) - 1.0 / np.tan(theta) + 0.5 * np.tan(theta)
+    return per_radian * (np.pi / 180.0)
+
+
 def peak_shift(
     two_theta: np.ndarray | float, *, zero_shift: float = 0.0, displacement: float = 0.0
 ) -> np.ndarray:

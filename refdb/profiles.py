@@ -24,6 +24,67 @@ def lorentzian(x: np.ndarray, center: np.ndarray | float, fwhm: np.ndarray | flo
     return (2.0 / (np.pi * fwhm)) / (1.0 + 4.0 * dx * dx)
 
 
+def gaussian_with_derivatives(
+    x: np.ndarray, center: np.ndarray | float, fwhm: np.ndarray | float
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """:func:`gaussian` and its partial derivatives with respect to the centre and the FWHM.
+
+    With u = (x − c)/w and G = (2√(ln2/π)/w)·exp(−4 ln2 u²):
+    ∂G/∂c = G · 8 ln2 · u / w and ∂G/∂w = G · (8 ln2 · u² − 1) / w.
+
+    Returns
+    -------
+    (G, ∂G/∂c, ∂G/∂w) : ndarrays broadcast from the inputs; per degree for the derivatives.
+    """
+    # In-place steps: every temporary of a window block would otherwise be a fresh allocation.
+    inv = 1.0 / np.asarray(fwhm, dtype=float)
+    dx = np.asarray((np.asarray(x, dtype=float) - center) * inv)  # full broadcast shape
+    dx2 = dx * dx
+    value = np.asarray(dx2 * (-4.0 * _LN2))  # an array even for scalar inputs, for out=
+    np.exp(value, out=value)
+    value *= _G_NORM * inv
+    d_center = dx
+    d_center *= value
+    d_center *= 8.0 * _LN2 * inv
+    d_fwhm = dx2
+    d_fwhm *= 8.0 * _LN2
+    d_fwhm -= 1.0
+    d_fwhm *= value
+    d_fwhm *= inv
+    return value, d_center, d_fwhm
+
+
+def lorentzian_with_derivatives(
+    x: np.ndarray, center: np.ndarray | float, fwhm: np.ndarray | float
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """:func:`lorentzian` and its partial derivatives with respect to the centre and the FWHM.
+
+    With u = (x − c)/w, q = 1/(1 + 4u²) and L = (2/(πw))·q:
+    ∂L/∂c = L · 8u·q / w and ∂L/∂w = L · (4u² − 1)·q / w.
+
+    Returns
+    -------
+    (L, ∂L/∂c, ∂L/∂w) : ndarrays broadcast from the inputs; per degree for the derivatives.
+    """
+    inv = 1.0 / np.asarray(fwhm, dtype=float)
+    dx = np.asarray((np.asarray(x, dtype=float) - center) * inv)  # full broadcast shape
+    q = np.asarray(dx * dx)  # an array even for scalar inputs, for the out= below
+    q *= 4.0
+    q += 1.0
+    np.reciprocal(q, out=q)
+    value = q * ((2.0 / np.pi) * inv)
+    l_per_w = value * inv
+    d_center = dx
+    d_center *= l_per_w
+    d_center *= q
+    d_center *= 8.0
+    d_fwhm = q  # (4u² − 1)·q = 1 − 2q
+    d_fwhm *= -2.0
+    d_fwhm += 1.0
+    d_fwhm *= l_per_w
+    return value, d_center, d_fwhm
+
+
 def pseudo_voigt(
     x: np.ndarray, center: np.ndarray | float, fwhm: np.ndarray | float, eta: np.ndarray | float
 ) -> np.ndarray:
@@ -58,6 +119,18 @@ def caglioti_fwhm(two_theta: np.ndarray | float, u: float, v: float, w: float) -
     """
     t = np.tan(np.radians(np.asarray(two_theta, dtype=float)) / 2.0)
     return np.sqrt(np.clip(u * t * t + v * t + w, 1e-8, None))
+
+
+def caglioti_fwhm_slope(two_theta: np.ndarray | float, u: float, v: float, w: float) -> np.ndarray:
+    """d FWHM / d2θ of :func:`caglioti_fwhm` (dimensionless: degrees per degree).
+
+    With t = tan θ, FWHM = √(U t² + V t + W) and dt/d2θ = (1 + t²)·π/360 per degree 2θ, so
+    dFWHM/d2θ = (2U t + V)(1 + t²)·π / (720·FWHM); zero where FWHM² is clipped.
+    """
+    t = np.tan(np.radians(np.asarray(two_theta, dtype=float)) / 2.0)
+    f2 = u * t * t + v * t + w
+    slope = (2.0 * u * t + v) * (1.0 + t * t) * (np.pi / 720.0) / np.sqrt(np.clip(f2, 1e-8, None))
+    return np.where(f2 > 1e-8, slope, 0.0)
 
 
 def scherrer_fwhm(

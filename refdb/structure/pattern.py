@@ -23,7 +23,14 @@ import numpy as np
 
 from refdb.errors import InputError
 from refdb.geometry import lorentz_polarisation
-from refdb.profiles import caglioti_fwhm, gaussian, lorentzian, scherrer_fwhm
+from refdb.profiles import (
+    caglioti_fwhm,
+    gaussian,
+    gaussian_with_derivatives,
+    lorentzian,
+    lorentzian_with_derivatives,
+    scherrer_fwhm,
+)
 from refdb.radiation import Radiation, two_theta_from_d
 from refdb.records import PatternLines, ReferenceData
 from refdb.structure import _symmetry
@@ -318,9 +325,110 @@ def sum_profiles(grid: np.ndarray, centers: np.ndarray, areas: np.ndarray, width
     return out
 
 
-def _accumulate(out: np.ndarray, grid: np.ndarray, centers: np.ndarray, areas: np.ndarray, widths: np.ndarray,
-                half_window: float, shape) -> None:
-    """Add Σ areas_i · shape(grid; centers_i, widths_i) within ±half_window FWHM to ``out``."""
+@dataclass(frozen=True, eq=False)
+class ProfileDerivatives:
+    """A drawn profile and its derivatives, from :func:`sum_profiles_with_derivatives`.
+
+    Attributes
+    ----------
+    profile : ndarray, shape (m,)
+        Σ a_i · pV_i on the grid, the same as :func:`sum_profiles`.
+    eta : ndarray, shape (m,)
+        ∂profile/∂η = Σ a_i (L_i − G_i), each part within its own window.
+    columns : ndarray, shape (k, m)
+        Row k: Σ a_i (v_ki · pV_i + c_ki · ∂pV_i/∂c_i + w_ki · ∂pV_i/∂w_i) for the weights
+        ``value``, ``center`` and ``width`` given (a weight set not given counts as zero).
+    """
+
+    profile: np.ndarray
+    eta: np.ndarray
+    columns: np.ndarray
+
+
+def sum_profiles_with_derivatives(
+    grid: np.ndarray,
+    centers: np.ndarray,
+    areas: np.ndarray,
+    widths: np.ndarray,
+    eta: float,
+    *,
+    value: np.ndarray | None = None,
+    center: np.ndarray | None = None,
+    width: np.ndarray | None = None,
+) -> ProfileDerivatives:
+    """:func:`sum_profiles` and, in the same pass over the windows, weighted sums of its
+    per-line derivatives — the columns of a Jacobian by the chain rule.
+
+    A parameter θ_k that moves line i's area, centre and FWHM by ∂a_i/∂θ_k = a_i·v_ki,
+    ∂c_i/∂θ_k = c_ki and ∂w_i/∂θ_k = w_ki gives ∂profile/∂θ_k = ``columns[k]``. The profile
+    is windowed exactly as in :func:`sum_profiles`, and the derivatives are those of the
+    windowed sum (where a window edge crosses a grid point the windowed sum jumps by at most
+    1/(1 + 4·40²) of a Lorentzian's height; that jump has no derivative and is left out).
+
+    Parameters
+    ----------
+    grid : ndarray, shape (m,)
+        Increasing, degrees 2θ.
+    centers, areas, widths : ndarray, shape (n,)
+        Line centres (degrees), areas, FWHM (degrees).
+    eta : float
+        Lorentzian fraction, 0–1.
+    value, center, width : ndarray, shape (k, n), optional
+        Per-line weights of the area (relative), centre and FWHM derivatives, one row per
+        column wanted; those given must have the same k.
+
+    Returns
+    -------
+    ProfileDerivatives
+    """
+    n = grid.shape[0]
+    weights = [None if a is None else np.asarray(a, dtype=float) for a in (value, center, width)]
+    k = next((a.shape[0] for a in weights if a is not None), 0)
+    # The non-zero weight sets per column, so that a column pays only for the terms it uses.
+    terms = [[(j, a[col]) for j, a in enumerate(weights) if a is not None and np.any(a[col])] for col in range(k)]
+    parts = {}
+    columns = np.zeros((k, n))
+    for name, frac, half_window, shape in (
+        ("lorentzian", eta, PROFILE_HALF_WINDOW, lorentzian_with_derivatives),
+        ("gaussian", 1.0 - eta, GAUSSIAN_HALF_WINDOW, gaussian_with_derivatives),
+    ):
+        total = np.zeros(n)
+        for rows, idx, valid in _windows(grid, centers, widths, half_window):
+            # Padding past a window gets weight 0, so one flat index serves every bincount.
+            # Work happens in place in a few block-sized buffers: for arrays of this size a
+            # fresh allocation (page faults) costs more than the arithmetic.
+            x = grid[idx]
+            weight = areas[rows, None] * valid
+            arrays = shape(x, centers[rows, None], widths[rows, None])
+            for a in arrays:
+                a *= weight
+            flat = idx.ravel()
+            total += np.bincount(flat, weights=arrays[0].ravel(), minlength=n)
+            if frac == 0.0:
+                continue
+            vals, tmp = weight, x  # free now: reused as scratch
+            for col, used in enumerate(terms):
+                if used:
+                    (j, wts), *rest = used
+                    np.multiply(arrays[j], wts[rows, None], out=vals)
+                    for j, wts in rest:
+                        vals += np.multiply(arrays[j], wts[rows, None], out=tmp)
+                    columns[col] += frac * np.bincount(flat, weights=vals.ravel(), minlength=n)
+        parts[name] = total
+    return ProfileDerivatives(
+        profile=eta * parts["lorentzian"] + (1.0 - eta) * parts["gaussian"],
+        eta=parts["lorentzian"] - parts["gaussian"],
+        columns=columns,
+    )
+
+
+def _windows(grid: np.ndarray, centers: np.ndarray, widths: np.ndarray, half_window: float):
+    """Blocks of line windows within ±half_window FWHM, as ``(rows, idx, valid)``.
+
+    ``rows`` are line indices; ``idx`` (rows × window) grid indices from each line's first
+    point, clipped to the grid; ``valid`` marks the points inside each line's window. Lines of
+    similar window length share a block, and each block's array stays near a million elements.
+    """
     lo = np.searchsorted(grid, centers - half_window * widths)
     hi = np.searchsorted(grid, centers + half_window * widths)
     span = hi - lo
@@ -335,7 +443,13 @@ def _accumulate(out: np.ndarray, grid: np.ndarray, centers: np.ndarray, areas: n
         w = int(sorted_span[start + count - 1])
         idx = lo[rows, None] + np.arange(w)[None, :]
         valid = idx < hi[rows, None]
-        idx = np.minimum(idx, grid.shape[0] - 1)
+        yield rows, np.minimum(idx, grid.shape[0] - 1, out=idx), valid
+        start += count
+
+
+def _accumulate(out: np.ndarray, grid: np.ndarray, centers: np.ndarray, areas: np.ndarray, widths: np.ndarray,
+                half_window: float, shape) -> None:
+    """Add Σ areas_i · shape(grid; centers_i, widths_i) within ±half_window FWHM to ``out``."""
+    for rows, idx, valid in _windows(grid, centers, widths, half_window):
         vals = areas[rows, None] * shape(grid[idx], centers[rows, None], widths[rows, None])
         out += np.bincount(idx[valid], weights=vals[valid], minlength=grid.shape[0])
-        start += count
