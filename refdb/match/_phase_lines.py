@@ -10,7 +10,7 @@ stick's d-spacing, wavelength and nominal 2θ.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 
@@ -18,7 +18,7 @@ from refdb.errors import InputError
 from refdb.geometry import lorentz_polarisation
 from refdb.radiation import Radiation, two_theta_from_d
 from refdb.records import ReferenceData
-from refdb.structure.pattern import MarchDollase, orientation_factor, stick_pattern
+from refdb.structure.pattern import MarchDollase, march_dollase_average, orientation_cos2, stick_pattern
 
 #: d-scales are refined within ±2 %; sticks are prepared over a range wider by this much.
 _RANGE_MARGIN_DEG = 4.0
@@ -50,6 +50,8 @@ class PhaseSticks:
     strength: np.ndarray
     hkl: np.ndarray | None
     monochromator_two_theta: float | None
+    #: Texture-axis geometry per axis (reading the symmetry is most of a texture factor's cost).
+    _cos2: dict = field(default_factory=dict, repr=False)
 
     def moved(self, d_scale: float) -> tuple[np.ndarray, np.ndarray]:
         """(2θ, strength) after multiplying every d by ``d_scale``; LP follows the new angle."""
@@ -67,7 +69,10 @@ class PhaseSticks:
         """March–Dollase factor of each stick (see :func:`refdb.structure.pattern.orientation_factor`)."""
         if self.hkl is None:
             raise InputError(f"texture refinement of {self.reference.name!r} needs Miller indices")
-        return orientation_factor(self.hkl, self.reference, MarchDollase(float(ratio), tuple(axis)))
+        md = MarchDollase(float(ratio), tuple(int(i) for i in axis))  # checks ratio and axis
+        if md.axis not in self._cos2:
+            self._cos2[md.axis] = orientation_cos2(self.hkl, self.reference, md.axis)
+        return march_dollase_average(self._cos2[md.axis], md.ratio)
 
 
 def phase_sticks(ref: ReferenceData, radiation: Radiation, two_theta_range: tuple[float, float]) -> PhaseSticks:

@@ -201,17 +201,28 @@ def orientation_factor(hkl: np.ndarray, ref: ReferenceData, md: MarchDollase) ->
     -------
     ndarray, shape (n,)
     """
+    return march_dollase_average(orientation_cos2(hkl, ref, md.axis), md.ratio)
+
+
+def orientation_cos2(hkl: np.ndarray, ref: ReferenceData, axis: tuple[int, int, int]) -> np.ndarray:
+    """cos² of the angle between every Laue-group image of each hkl and the texture axis,
+    shape (n, k): what :func:`orientation_factor` needs besides the ratio (a refinement of the
+    ratio computes it once)."""
     if ref.cell is None:
         raise InputError(f"{ref.name}: preferred orientation needs the cell")
     laue = _symmetry.laue_rotations(_rotations_of(ref))
     gstar = reciprocal_metric(ref.cell)
     images = np.einsum("ni,kij->nkj", hkl.astype(float), laue)  # (n, k, 3)
-    axis = np.asarray(md.axis, dtype=float)
-    dot = images @ gstar @ axis
+    ax = np.asarray(axis, dtype=float)
+    dot = images @ gstar @ ax
     norm_h = np.sqrt(np.einsum("nki,ij,nkj->nk", images, gstar, images))
-    norm_a = np.sqrt(axis @ gstar @ axis)
-    cos2 = np.clip((dot / (norm_h * norm_a)) ** 2, 0.0, 1.0)
-    r = md.ratio
+    norm_a = np.sqrt(ax @ gstar @ ax)
+    return np.clip((dot / (norm_h * norm_a)) ** 2, 0.0, 1.0)
+
+
+def march_dollase_average(cos2: np.ndarray, ratio: float) -> np.ndarray:
+    """Mean over the images (axis 1) of the March–Dollase factor (r² cos²α + sin²α / r)^(−3/2)."""
+    r = float(ratio)
     return np.mean((r * r * cos2 + (1.0 - cos2) / r) ** -1.5, axis=1)
 
 
