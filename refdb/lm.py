@@ -17,7 +17,8 @@ rejected like any other.
 
 Stops (as in MINPACK, Moré, Garbow & Hillstrom 1980, ANL-80-74): ``gtol`` — every free column
 of J is nearly orthogonal to the residual, max |cos| ≤ gtol; ``ftol`` — an accepted step
-reduced χ² by less than ftol relative; ``xtol`` — the step is below xtol·(xtol + ‖x‖).
+reduced χ² by less than ftol relative (or ``cost_atol`` absolute) and the undamped step
+would not gain more; ``xtol`` — the step is below xtol·(xtol + ‖x‖).
 """
 
 from __future__ import annotations
@@ -75,6 +76,7 @@ def bounded_lm(
     ftol: float = 1e-8,
     xtol: float = 1e-8,
     gtol: float = 1e-8,
+    cost_atol: float = 0.0,
 ) -> LMResult:
     """Minimise ½‖r(x)‖² subject to lower ≤ x ≤ upper.
 
@@ -94,6 +96,10 @@ def bounded_lm(
         Most evaluations of ``residual``.
     ftol, xtol, gtol : float
         Relative stopping tolerances (module docstring).
+    cost_atol : float
+        Also stop when an accepted step, and the undamped step after it, change ‖r‖² by less
+        than this (with residuals weighted by 1/σ, a change of 0.01 means the parameters are
+        within 0.1 standard uncertainty of the minimum).
 
     Returns
     -------
@@ -129,7 +135,7 @@ def bounded_lm(
             break
         d = np.maximum(scale[free], 1e-12 * max(float(scale.max()), 1e-300))
         a_ff, g_f = a[np.ix_(free, free)], g[free]
-        if small_reduction and _gauss_newton_gain(a_ff, g_f) <= ftol * cost:
+        if small_reduction and _gauss_newton_gain(a_ff, g_f) <= max(ftol * cost, cost_atol):
             # A heavily damped step can gain little far from the minimum; stop only when the
             # undamped (Gauss–Newton) step would not gain more either.
             status = 2
@@ -163,7 +169,7 @@ def bounded_lm(
                 jac = jacobian(x)
                 lam *= max(1.0 / 3.0, 1.0 - (2.0 * rho - 1.0) ** 3)
                 nu = 2.0
-                small_reduction = reduction <= ftol * cost_new
+                small_reduction = reduction <= max(ftol * cost_new, cost_atol)
                 if np.linalg.norm(step) <= xtol * (xtol + np.linalg.norm(x)):
                     status = 3
             else:

@@ -88,3 +88,14 @@ def test_box_constrained_linear_problems_match_scipy_lsq_linear(seed, m, p):
     # Equal minimum costs to 1e-7 relative (plus 1e-10 absolute for a zero-residual case):
     # both solvers stop within ~1e-8 of the optimum in their own tests.
     assert cost == pytest.approx(cost_ref, rel=1e-7, abs=1e-10)
+
+
+def test_absolute_cost_tolerance_stops_early_but_close():
+    tight = bounded_lm(*_split(_misra), np.array([500.0, 1e-4]), np.full(2, -np.inf), np.full(2, np.inf),
+                       max_nfev=500, ftol=1e-15, xtol=1e-15, gtol=1e-15)
+    loose = bounded_lm(*_split(_misra), np.array([500.0, 1e-4]), np.full(2, -np.inf), np.full(2, np.inf),
+                       max_nfev=500, ftol=1e-15, xtol=1e-15, gtol=1e-15, cost_atol=1e-3)
+    assert loose.success and loose.nfev < tight.nfev
+    # Stopped where neither the last step nor an undamped one gains 1e-3: near the minimum the
+    # problem is almost quadratic, so what is left to gain is of that size (NIST certified RSS).
+    assert 0.0 <= loose.fun @ loose.fun - MISRA_RSS <= 1e-3
