@@ -572,6 +572,10 @@ class _Context:
         self.degree = degree
         self.threshold = threshold
         self.eta = 0.5  # pseudo-Voigt mixing of the latest full refinement
+        # What every scale-only solve shares: the net counts, weights and background basis.
+        self._target = scan.counts - background
+        self._w = 1.0 / np.clip(scan.sigma, 1e-6, None) ** 2
+        self._basis = _chebyshev_basis(scan.two_theta, degree)
 
     def refine(self, refs, starts, *, quick: bool = False, evaluations: int = 40) -> RefinementResult:
         fit = refine_mixture(
@@ -592,10 +596,7 @@ class _Context:
 
     def _solve(self, cols: np.ndarray, fit: RefinementResult | None) -> float:
         """χ² of the best non-negative combination of ``cols`` plus the background."""
-        x = self.scan.two_theta
-        target = self.scan.counts - self.background
-        w = 1.0 / np.clip(self.scan.sigma, 1e-6, None) ** 2
-        basis = _chebyshev_basis(x, self.degree)
+        target, w, basis = self._target, self._w, self._basis
         s, c = _solve_linear(cols, basis, target, w)
         r = (target - cols @ s - basis @ c) * np.sqrt(w)
         return float(r @ r)

@@ -29,6 +29,7 @@ ch. 1; McCusker, Von Dreele, Cox, Louër & Scardi 1999, J. Appl. Cryst. 32, 36):
 
 from __future__ import annotations
 
+import functools
 from collections.abc import Sequence
 from dataclasses import dataclass, field
 from typing import NamedTuple
@@ -353,8 +354,23 @@ class _Lines(NamedTuple):
 
 
 def _prepared(ref: ReferenceData, radiation: Radiation, x: np.ndarray) -> PhaseSticks:
-    """Sticks of ``ref`` over the grid, without the negligibly weak ones."""
-    ph = phase_sticks(ref, radiation, (float(x[0]), float(x[-1])))
+    """Sticks of ``ref`` over the grid, without the negligibly weak ones.
+
+    A decomposition draws the same entry for the same scan many times (trial fits, gains,
+    detection limits); the sticks are kept for the last :data:`_PREPARED_KEPT` (entry,
+    radiation, range) triples. Entries and radiations compare by identity, and the cache holds
+    them, so an identity cannot be reused while its sticks are kept.
+    """
+    return _prepared_for(ref, radiation, float(x[0]), float(x[-1]))
+
+
+#: Prepared stick sets kept by :func:`_prepared`.
+_PREPARED_KEPT = 256
+
+
+@functools.lru_cache(maxsize=_PREPARED_KEPT)
+def _prepared_for(ref: ReferenceData, radiation: Radiation, low: float, high: float) -> PhaseSticks:
+    ph = phase_sticks(ref, radiation, (low, high))
     keep = ph.strength > _STICK_CUTOFF * (ph.strength.max() if ph.strength.size else 0.0)
     return PhaseSticks(
         reference=ph.reference,
