@@ -79,8 +79,8 @@ from refdb.match.quant import METHODS, Quantification, quantify
 from refdb.match.refine import (
     PhaseStart,
     RefinementResult,
+    LinearSolver,
     _chebyshev_basis,
-    _solve_linear,
     caglioti_from_widths,
     phase_profile,
     refine_mixture,
@@ -584,6 +584,7 @@ class _Context:
         self._target = scan.counts - background
         self._w = 1.0 / np.clip(scan.sigma, 1e-6, None) ** 2
         self._basis = _chebyshev_basis(scan.two_theta, degree)
+        self._linear = LinearSolver(self._basis, self._w)
 
     def refine(self, refs, starts, *, quick: bool = False, evaluations: int = 40) -> RefinementResult:
         fit = refine_mixture(
@@ -623,7 +624,7 @@ class _Context:
     def _solve(self, cols: np.ndarray, fit: RefinementResult | None) -> float:
         """χ² of the best non-negative combination of ``cols`` plus the background."""
         target, w, basis = self._target, self._w, self._basis
-        s, c = _solve_linear(cols, basis, target, w)
+        s, c = self._linear.solve(cols, target)
         r = (target - cols @ s - basis @ c) * np.sqrt(w)
         return float(r @ r)
 

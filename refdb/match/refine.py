@@ -388,20 +388,35 @@ def _chebyshev_basis(x: np.ndarray, degree: int) -> np.ndarray:
     return np.polynomial.chebyshev.chebvander(t, degree)  # (n, degree+1)
 
 
-def _solve_linear(cols: np.ndarray, basis: np.ndarray, target: np.ndarray, w: np.ndarray):
-    """Scales ≥ 0 for ``cols`` and free coefficients for ``basis`` minimising Σ w (target − model)².
+class LinearSolver:
+    """Scales ≥ 0 for profile columns and free background coefficients minimising
+    Σ w (target − cols·s − basis·c)², for one basis and one set of weights.
 
-    Solved with NNLS (Lawson & Hanson 1974) on a matrix in which each free column appears
-    with both signs. Columns are normalised first for conditioning.
+    The free background coefficients are eliminated first: with W = diag(√w) and the thin QR
+    factorisation W·basis = QR, the problem becomes non-negative least squares (Lawson &
+    Hanson 1974, ch. 23) on the columns and target with span(Q) projected out — a matrix of
+    only as many columns as phases — and then c = R⁻¹Qᵀ W (target − cols·s). The QR is made
+    once; refinement solves this thousands of times.
     """
-    sw = np.sqrt(w)
-    a = np.hstack([cols, basis, -basis]) * sw[:, None]
-    norm = np.linalg.norm(a, axis=0)
-    norm[norm == 0] = 1.0
-    coef, _ = nnls(a / norm, target * sw, maxiter=50 * a.shape[1])
-    coef = coef / norm
-    p, k = cols.shape[1], basis.shape[1]
-    return coef[:p], coef[p : p + k] - coef[p + k :]
+
+    def __init__(self, basis: np.ndarray, w: np.ndarray) -> None:
+        self.sw = np.sqrt(w)
+        self.q, self.r = np.linalg.qr(basis * self.sw[:, None])
+
+    def solve(self, cols: np.ndarray, target: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        wc = cols * self.sw[:, None]
+        wt = target * self.sw
+        pc = wc - self.q @ (self.q.T @ wc)
+        pt = wt - self.q @ (self.q.T @ wt)
+        if cols.shape[1]:
+            norm = np.linalg.norm(pc, axis=0)
+            norm[norm == 0] = 1.0  # a column inside the background's span gets scale 0
+            s, _ = nnls(pc / norm, pt, maxiter=50 * cols.shape[1])
+            s = s / norm
+        else:
+            s = np.zeros(0)
+        c = np.linalg.solve(self.r, self.q.T @ (wt - wc @ s)) if self.r.size else np.zeros(0)
+        return s, c
 
 
 def refine_mixture(
@@ -482,6 +497,7 @@ def refine_mixture(
     lines = [_prepared(r, scan.radiation, x) for r in phases]
     model = _Model(x, scan.radiation, lines, starts, caglioti or DEFAULT_CAGLIOTI, per_phase_shift)
     basis = _chebyshev_basis(x, background_degree)
+    linear = LinearSolver(basis, w)
     target = y - bkg0
     if x.size <= len(model.names) + len(phases) + basis.shape[1]:
         raise InputError("the scan has too few points for this many phases", "use a wider 2θ range")
@@ -497,13 +513,13 @@ def refine_mixture(
 
     def resid(theta: np.ndarray) -> np.ndarray:
         cols = columns(theta)
-        s, c = _solve_linear(cols, basis, target, w)
+        s, c = linear.solve(cols, target)
         return (target - cols @ s - basis @ c) / sig
 
     def jac(theta: np.ndarray) -> np.ndarray:
         # Kaufman's approximation: linear coefficients held fixed while θ moves.
         cols = columns(theta)
-        s, _ = _solve_linear(cols, basis, target, w)
+        s, _ = linear.solve(cols, target)
         return _model_jacobian(model, theta, s) / -sig[:, None]
 
     if not 0.0 <= eta <= 1.0:
@@ -518,7 +534,7 @@ def refine_mixture(
         )
         theta, message, converged = sol.x, sol.message, bool(sol.status > 0)
     cols = columns(theta)
-    s, c = _solve_linear(cols, basis, target, w)
+    s, c = linear.solve(cols, target)
     bkg = bkg0 + basis @ c
     calc = bkg + cols @ s
     r = (y - calc) / sig
