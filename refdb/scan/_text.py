@@ -249,12 +249,12 @@ def _plain_columns(text: str, *, allow_header: bool, min_columns: int) -> Rows |
         data = data[1:]
     if not data:
         return None
-    width = len(data[0][1].split())
-    fields = " ".join(line for _, line in data).split()
-    if width < min_columns or len(fields) != width * len(data):
+    split = [line.split() for _, line in data]
+    width = len(split[0])
+    if width < min_columns or any(len(f) != width for f in split):
         return None
     try:
-        values = np.array(fields, dtype=float).reshape(len(data), width)
+        values = np.array(split, dtype=float)
     except ValueError:
         return None
     return Rows(values, np.array([n for n, _ in data], dtype=np.int64), header)
