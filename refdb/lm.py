@@ -7,7 +7,7 @@ solver does the minimum: the damped normal equations
     (JᵀJ + λ D) δ = −Jᵀr
 
 with Marquardt's scaling D = diag(JᵀJ), kept at its running maximum (Moré 1978, in Numerical
-Analysis, Lecture Notes in Mathematics 630, 105), and Nielsen's update of λ from the gain
+Analysis, ed. Watson, Springer LNM 630, 105), and Nielsen's update of λ from the gain
 ratio ρ of actual to predicted reduction (Nielsen 1999, IMM-REP-1999-05, Technical University
 of Denmark; Madsen, Nielsen & Tingleff 2004, Methods for Non-Linear Least Squares Problems,
 §3.2). Box bounds are kept by projection: a parameter sitting on a bound whose gradient points
