@@ -450,7 +450,7 @@ def group_rows(index: SearchIndex, rows: Sequence[int], top: int) -> list[tuple[
 def search(peaks: PeakList, index: SearchIndex, *, scan: Scan | None = None, background: np.ndarray | None = None,
            elements_required: Iterable[str] = (), elements_allowed: Iterable[str] | None = None,
            elements_excluded: Iterable[str] = (), tags: Iterable[str] = (), kind: str | None = None,
-           top: int = 20, d_scale: bool = True, profile_check: bool = True) -> SearchResult:
+           top: int = 20, d_scale: bool = True, profile_check: bool = True, shortlist: int | None = None) -> SearchResult:
     """Rank library entries against an observed peak list (module docstring).
 
     Parameters
@@ -475,6 +475,9 @@ def search(peaks: PeakList, index: SearchIndex, *, scan: Scan | None = None, bac
         Fit an isotropic d-scale up to ±2 % (doped, strained or thermally expanded phases).
     profile_check : bool
         Run the whole-profile check when ``scan`` is given.
+    shortlist : int, optional
+        Entries the prefilter passes to the detailed score; default
+        max(:data:`SHORTLIST_MIN`, :data:`SHORTLIST_PER_TOP` × ``top``).
 
     Returns
     -------
@@ -496,7 +499,9 @@ def search(peaks: PeakList, index: SearchIndex, *, scan: Scan | None = None, bac
     width = width_model(peaks)
     d_range = _d_range(peaks)
     notes: list[str] = []
-    n_short = max(SHORTLIST_MIN, SHORTLIST_PER_TOP * top)
+    if shortlist is not None and shortlist < 1:
+        raise InputError("the shortlist must hold at least one entry")
+    n_short = shortlist if shortlist is not None else max(SHORTLIST_MIN, SHORTLIST_PER_TOP * top)
     short = prefilter(peaks, index, allowed, d_scale=d_scale, width=width, d_range=d_range, keep=n_short)
     ranked: list[Candidate] = []
     checked = False

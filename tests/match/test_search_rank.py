@@ -95,3 +95,15 @@ def test_identical_lines_in_another_space_group_are_reported_as_tied():
     assert res.to_dict()["n_tied"] == res.n_tied
     lone = search(entry_peaks(BASE, 11, jitter=0.01), INDEX, top=5)
     assert lone.n_tied == 1 and not any("cannot tell" in n for n in lone.notes)
+
+
+def test_shortlist_bounds_the_detailed_score():
+    peaks = entry_peaks(BASE, 11, jitter=0.01)
+    wide = search(peaks, INDEX, top=10, shortlist=50)
+    narrow = search(peaks, INDEX, top=10, shortlist=1)
+    # One entry scored in detail gives at most one candidate (with its folded equivalents);
+    # it is the prefilter's first, which on the target's own peaks is the target's group.
+    assert len(narrow.candidates) == 1
+    assert narrow.candidates[0].entry_id == wide.candidates[0].entry_id
+    with pytest.raises(InputError):
+        search(peaks, INDEX, shortlist=0)
