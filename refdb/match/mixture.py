@@ -430,12 +430,13 @@ def decompose(
         for group in groups:
             best = None
             for c, ref, st in group:
-                hopeless = ctx.hopeless(refs, _carry(fit, starts), ref, st)
+                carried = _carry(fit, starts)
+                hopeless = ctx.hopeless(refs, carried, ref, st)
                 if hopeless:
                     rejected[c.entry_id] = Rejection(c.name, c.formula, c.entry_id, hopeless)
                     final_no.add(c.entry_id)
                     continue
-                trial_fit = ctx.refine(refs + [ref], _carry(fit, starts) + [st], evaluations=TRIAL_EVALUATIONS)
+                trial_fit = ctx.refine(refs + [ref], carried + [st], evaluations=TRIAL_EVALUATIONS)
                 verdict = ctx.judge(trial_fit, refs + [ref], len(refs), chi2_now)
                 if not verdict.ok:
                     rejected[c.entry_id] = Rejection(c.name, c.formula, c.entry_id, verdict.reason)
@@ -588,11 +589,10 @@ class _Context:
         self.degree = degree
         self.threshold = threshold
         self.eta = 0.5  # pseudo-Voigt mixing of the latest full refinement
-        # What every scale-only solve shares: the net counts, weights and background basis.
+        # What every scale-only solve shares: the net counts, and weights and background basis.
         self._target = scan.counts - background
-        self._w = 1.0 / np.clip(scan.sigma, 1e-6, None) ** 2
-        self._basis = _chebyshev_basis(scan.two_theta, degree)
-        self._linear = LinearSolver(self._basis, self._w)
+        self._linear = LinearSolver(_chebyshev_basis(scan.two_theta, degree),
+                                    1.0 / np.clip(scan.sigma, 1e-6, None) ** 2)
 
     def refine(self, refs, starts, *, quick: bool = False, evaluations: int = 40) -> RefinementResult:
         fit = refine_mixture(
@@ -629,12 +629,9 @@ class _Context:
         counts = np.clip(self.scan.counts - fit.phase_profiles.sum(axis=0), 0.0, None)
         return replace(self.scan, counts=counts)
 
-    def _solve(self, cols: np.ndarray, fit: RefinementResult | None) -> float:
+    def _chi2(self, cols: np.ndarray) -> float:
         """χ² of the best non-negative combination of ``cols`` plus the background."""
-        target, w, basis = self._target, self._w, self._basis
-        s, c = self._linear.solve(cols, target)
-        r = (target - cols @ s - basis @ c) * np.sqrt(w)
-        return float(r @ r)
+        return self._linear.chi2(cols, self._target)
 
     def _unit_columns(self, fit: RefinementResult) -> list[np.ndarray]:
         return [p.profile / p.scale if p.scale > 0 else np.zeros_like(p.profile) for p in fit.phases]
@@ -647,16 +644,16 @@ class _Context:
             ref, self.scan.two_theta, self.scan.radiation, zero_shift=start.zero_shift,
             displacement=start.displacement, d_scale=start.d_scale, caglioti=self.caglioti, eta=self.eta,
         ))
-        return (chi2_now - self._solve(np.column_stack(cols), fit)) / self.gof_floor(fit)
+        return (chi2_now - self._chi2(np.column_stack(cols))) / self.gof_floor(fit)
 
     def gain_of(self, fit: RefinementResult, p: int) -> float:
         """Δχ²/max(GoF, 1) that phase p of ``fit`` brings (the others' profiles fixed)."""
         cols = [c for i, c in enumerate(self._unit_columns(fit)) if i != p]
-        chi2 = self._solve(np.column_stack(cols), fit) if cols else self.chi2_background_only()
+        chi2 = self._chi2(np.column_stack(cols)) if cols else self.chi2_background_only()
         return (chi2 - fit.chi2) / self.gof_floor(fit)
 
     def chi2_background_only(self) -> float:
-        return self._solve(np.zeros((len(self.scan), 0)), None)
+        return self._chi2(np.zeros((len(self.scan), 0)))
 
     @staticmethod
     def gof_floor(fit: RefinementResult | None) -> float:

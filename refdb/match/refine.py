@@ -400,8 +400,15 @@ class LinearSolver:
     """
 
     def __init__(self, basis: np.ndarray, w: np.ndarray) -> None:
+        self.basis = basis
         self.sw = np.sqrt(w)
         self.q, self.r = np.linalg.qr(basis * self.sw[:, None])
+
+    def chi2(self, cols: np.ndarray, target: np.ndarray) -> float:
+        """Σ w (target − cols·s − basis·c)² at the solution."""
+        s, c = self.solve(cols, target)
+        r = (target - cols @ s - self.basis @ c) * self.sw
+        return float(r @ r)
 
     def solve(self, cols: np.ndarray, target: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         wc = cols * self.sw[:, None]
@@ -504,22 +511,23 @@ def refine_mixture(
 
     cache: dict = {}
 
-    def columns(theta: np.ndarray) -> np.ndarray:
+    def solved(theta: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Profile columns and the linear solution (scales, background) at ``theta``, kept
+        for the last θ: the optimiser asks for the Jacobian where it has just evaluated."""
         key = theta.tobytes()
         if key not in cache:
             cache.clear()
-            cache[key] = np.column_stack([model.profile(p, theta) for p in range(len(lines))])
+            cols = np.column_stack([model.profile(p, theta) for p in range(len(lines))])
+            cache[key] = (cols, *linear.solve(cols, target))
         return cache[key]
 
     def resid(theta: np.ndarray) -> np.ndarray:
-        cols = columns(theta)
-        s, c = linear.solve(cols, target)
+        cols, s, c = solved(theta)
         return (target - cols @ s - basis @ c) / sig
 
     def jac(theta: np.ndarray) -> np.ndarray:
         # Kaufman's approximation: linear coefficients held fixed while θ moves.
-        cols = columns(theta)
-        s, _ = linear.solve(cols, target)
+        _, s, _ = solved(theta)
         return _model_jacobian(model, theta, s) / -sig[:, None]
 
     if not 0.0 <= eta <= 1.0:
@@ -533,8 +541,7 @@ def refine_mixture(
             max_nfev=max_evaluations, xtol=1e-6, ftol=1e-7,
         )
         theta, message, converged = sol.x, sol.message, bool(sol.status > 0)
-    cols = columns(theta)
-    s, c = linear.solve(cols, target)
+    cols, s, c = solved(theta)
     bkg = bkg0 + basis @ c
     calc = bkg + cols @ s
     r = (y - calc) / sig
