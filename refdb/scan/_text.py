@@ -205,10 +205,7 @@ def _rows_by_line(text: str, name: str, *, allow_header: bool, min_columns: int)
     numbers: list[int] = []
     header: tuple[str, ...] = ()
     width = 0
-    for number, raw in enumerate(text.splitlines(), start=1):
-        line = raw.strip()
-        if not line or line.startswith(COMMENT_MARKS):
-            continue
+    for number, line in _data_lines(text):
         fields = split_fields(line)
         if not rows and not header and allow_header and not any(_is_number(f) for f in fields):
             header = tuple(fields)
@@ -241,8 +238,7 @@ def _plain_columns(text: str, *, allow_header: bool, min_columns: int) -> Rows |
     and explains."""
     if ";" in text or "," in text:
         return None
-    data = [(n, line) for n, line in enumerate(text.splitlines(), start=1)
-            if line.strip() and not line.lstrip().startswith(COMMENT_MARKS)]
+    data = _data_lines(text)
     header: tuple[str, ...] = ()
     if data and allow_header and not any(_is_number(f) for f in data[0][1].split()):
         header = tuple(data[0][1].split())
@@ -258,6 +254,12 @@ def _plain_columns(text: str, *, allow_header: bool, min_columns: int) -> Rows |
     except ValueError:
         return None
     return Rows(values, np.array([n for n, _ in data], dtype=np.int64), header)
+
+
+def _data_lines(text: str) -> list[tuple[int, str]]:
+    """(1-based line number, stripped line) of every line that is neither blank nor a comment."""
+    stripped = ((n, raw.strip()) for n, raw in enumerate(text.splitlines(), start=1))
+    return [(n, line) for n, line in stripped if line and not line.startswith(COMMENT_MARKS)]
 
 
 def _clip(line: str, n: int = 40) -> str:
