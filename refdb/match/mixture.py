@@ -109,7 +109,8 @@ CONTENDER_SHARE = 0.7
 #: phase missing from the library, and a minor phase's lines then win it too few votes for
 #: the default shortlist of 100 (benchmark, 3–10 wt % recall, seeds 2026 / 7 / 100k-entry
 #: index: 88.9 / 90.3 / 69.6 % → 93.1 / 88.7 / 78.3 %; false phases 0.050 / 0.100 / 0.100 →
-#: 0.050 / 0.083 / 0.100 per scan; the 1,000-scan batch took 140 s instead of 114–121 s).
+#: 0.050 / 0.083 / 0.100 per scan; the 1,000-scan batch took 140 s instead of 114–121 s, 121–122 s
+#: after the refinement stopped solving the scales twice per step).
 RESIDUAL_SHORTLIST = 600
 #: Strongest lines of a phase examined for presence.
 STRONG_LINES_CHECKED = 8
