@@ -16,6 +16,11 @@ Procedure (:func:`decompose`)
    scan's peaks that the refined mixture does not account for (net counts above the
    calculated ones by 3σ and by :data:`MISFIT_FRACTION`) feed the next round's search; the
    search's profile check compares candidates with the scan minus the calculated phases.
+   When none of a group passes but one was turned down only because its present lines all
+   fall on the reflections of an accepted phase (a lattice objection, below), the two may be
+   entries of one lattice with different intensities: the accepted one is replaced by the
+   candidate when that lowers χ² with as many parameters and the candidate passes in the
+   swapped fit (:func:`_swap_trial`).
 3. Stop when no candidate passes, no significant residual peak is left, or ``max_phases``
    are accepted. Then, on the joint fit, drop one at a time (weakest first) any phase that
    no longer passes: its removal costs no more than the threshold, or its own lines no
@@ -429,7 +434,7 @@ def decompose(
         groups = [close[g0 : g0 + REFINED_PER_ROUND] for g0 in range(0, len(close), REFINED_PER_ROUND)]
         groups += [[o] for o in others]
         for group in groups:
-            best = None
+            best = swap = None
             for c, ref, st in group:
                 carried = _carry(fit, starts)
                 hopeless = ctx.hopeless(refs, carried, ref, st)
@@ -442,8 +447,32 @@ def decompose(
                 if not verdict.ok:
                     rejected[c.entry_id] = Rejection(c.name, c.formula, c.entry_id, verdict.reason)
                     final_no.add(c.entry_id)
+                    if swap is None and verdict.covered_by not in (None, std_index):
+                        found = _swap_trial(ctx, refs, carried, trial_fit, verdict.covered_by, ref, st, chi2_now)
+                        if found is not None:
+                            swap = (*found, c, ref)
                 elif best is None or trial_fit.chi2 < best[0].chi2:
                     best = (trial_fit, verdict, c, ref, st)
+            if best is None and swap is not None:
+                # Same number of phases, lower χ²: the candidate's intensities fit where the
+                # accepted phase's lattice alone did.
+                sw_fit, sw_starts, verdict, q, c, ref = swap
+                old = refs[q]
+                rejected.pop(c.entry_id, None)
+                rejected[old.id] = Rejection(
+                    old.name, old.formula, old.id,
+                    f"replaced by {ref.name}, whose lines fall on its reflections with intensities that fit "
+                    f"better (χ² {chi2_now:.0f} → {sw_fit.chi2:.0f}, same number of parameters)",
+                )
+                final_no.add(old.id)
+                refs[q] = ref
+                starts = _carry(sw_fit, sw_starts)
+                ev = verdict.evidence(c.score, rnd)
+                evidence[q] = replace(ev, text=f"{ev.text}; took the place of {old.name} (same reflections, "
+                                               f"intensities fit better)")
+                fit, chi2_now = sw_fit, sw_fit.chi2
+                accepted = True
+                break
             if best is not None:
                 trial_fit, verdict, c, ref, st = best
                 rejected.pop(c.entry_id, None)  # turned down in an earlier round for a low gain
@@ -470,6 +499,27 @@ def decompose(
                      quant_method, min_significance, filters, max_phases, notes)
 
 
+def _swap_trial(ctx, refs, carried, trial_fit, q, ref, start, chi2_now):
+    """Refit with accepted phase q replaced by ``ref`` (last phase of ``trial_fit``), whose
+    present lines all fall on q's reflections.
+
+    Two entries of one lattice (fluorite and AlP, two spinels) explain the same peak
+    positions; whichever is accepted first makes the other look like a patch on its misfit.
+    The swapped fit has as many parameters as the current one, so it is kept when its χ² is
+    lower and ``ref`` passes the acceptance test in it (its Δχ² measured by removing it,
+    scales of the others refitted). Returns ``(fit, starts, verdict, q)`` or ``None``.
+    """
+    sw_refs = list(refs)
+    sw_refs[q] = ref
+    sw_starts = list(carried)
+    sw_starts[q] = _carry(trial_fit, list(carried) + [start])[-1]
+    sw_fit = ctx.refine(sw_refs, sw_starts, evaluations=TRIAL_EVALUATIONS)
+    if sw_fit.chi2 >= chi2_now:
+        return None
+    verdict = ctx.judge(sw_fit, sw_refs, q, sw_fit.chi2 + ctx.gain_of(sw_fit, q) * ctx.gof_floor(sw_fit))
+    return (sw_fit, sw_starts, verdict, q) if verdict.ok else None
+
+
 def _drop_unsupported(ctx, refs, starts, evidence, fit, rejected, std_index):
     """Final check on the joint fit: drop, weakest first, phases that later ones made redundant
     or whose own lines no longer stand (never the declared standard).
@@ -484,7 +534,7 @@ def _drop_unsupported(ctx, refs, starts, evidence, fit, rejected, std_index):
                 continue
             gain = ctx.gain_of(fit, p)
             lc = _check_lines(fit, p, ctx.scan.radiation)
-            objection = _line_objection(lc) or _lattice_objection(fit, refs, p, lc, ctx.scan)
+            objection = _line_objection(lc) or _lattice_objection(fit, refs, p, lc, ctx.scan)[0]
             if (gain <= ctx.threshold or objection) and gain < worst_gain:
                 worst, worst_gain = p, gain
                 why = objection or f"redundant once other phases were refined (Δχ²/GoF {gain:.0f})"
@@ -570,6 +620,7 @@ class _Verdict:
     present: int
     checked: int
     own: int = 0
+    covered_by: int | None = None  # the phase whose reflections carry all its present lines
 
     def evidence(self, score: float, rnd: int) -> Evidence:
         text = (
@@ -698,9 +749,12 @@ class _Context:
             return _Verdict(False, "no line stands 3σ above the noise at the fitted scale", delta, self.threshold, present, checked)
         if delta <= self.threshold:
             return _Verdict(False, f"Δχ²/GoF {delta:.0f} not above {self.threshold:.0f}", delta, self.threshold, present, checked)
-        reason = _line_objection(lc) or _lattice_objection(fit, refs, p, lc, self.scan)
+        reason = _line_objection(lc)
         if reason:
             return _Verdict(False, reason, delta, self.threshold, present, checked)
+        reason, q = _lattice_objection(fit, refs, p, lc, self.scan)
+        if reason:
+            return _Verdict(False, reason, delta, self.threshold, present, checked, covered_by=q)
         return _Verdict(True, "", delta, self.threshold, present, checked, lc.own_present)
 
 
@@ -811,8 +865,9 @@ def _coverage(points: np.ndarray, reflections: np.ndarray, fwhm: float) -> tuple
 
 
 def _lattice_objection(fit: RefinementResult, refs: Sequence[ReferenceEntry], p: int, lc: _LineCheck,
-                       scan: Scan) -> str:
-    """Objection when every present line of phase p sits on a reflection of one other phase.
+                       scan: Scan) -> tuple[str, int | None]:
+    """Objection when every present line of phase p sits on a reflection of one other phase,
+    and that phase's index (``("", None)`` without objection).
 
     Another identified phase A "covers" a line of p when one of A's reflections — any of
     them, however weak A draws it — lies within ½ FWHM at A's refined cell and shift. When A
@@ -829,8 +884,9 @@ def _lattice_objection(fit: RefinementResult, refs: Sequence[ReferenceEntry], p:
         covered, chance = _coverage(lc.present_at, _drawn_lines(refs[q], fit.phases[q], scan)["line_two_theta"], fw)
         if covered.all() and chance < COINCIDENCE_CHANCE / len(others):
             return (f"each of its {lc.present_at.size} present lines falls on a reflection of {refs[q].name} "
-                    f"(by chance: p = {chance:.1g}), so the intensity there is that phase's misfit, not this phase")
-    return ""
+                    f"(by chance: p = {chance:.1g}), so the intensity there is that phase's misfit, not this "
+                    f"phase"), q
+    return "", None
 
 
 def _drop_stand_ins(ctx, peaks, refs, starts, evidence, fit, rejected, std_index, notes):

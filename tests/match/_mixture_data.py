@@ -38,9 +38,11 @@ PHASES = {
     "clausthalite": ("9008695", "Clausthalite", "PbSe"),
     "gallium antimonide": ("9008847", "Gallium antimonide", "GaSb"),
     "gamma calcium": ("9008530", "Calcium (bcc)", "Ca"),
+    # zinc-blende AlP: the fcc lattice of fluorite to 0.2 %, with other intensities
+    "aluminium phosphide": ("9008831", "Aluminium phosphide", "AlP"),
 }
 #: Phases that only the tests asking for them put into a library.
-ON_REQUEST = ("clausthalite", "gallium antimonide", "gamma calcium")
+ON_REQUEST = ("clausthalite", "gallium antimonide", "gamma calcium", "aluminium phosphide")
 
 
 def need_structures() -> None:
