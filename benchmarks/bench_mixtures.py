@@ -28,7 +28,8 @@ Reported:
 * how often an absent phase is flagged: at least one unexplained peak within 0.15° of one of
   its five strongest lines; and how often scans without one show unexplained peaks;
 * decomposition time of four-phase scans (median, goal ≤ 3 s), measured with one BLAS thread
-  (set below: the matrices are small, and threads only contend on a shared 2-core machine).
+  (set below: the matrices are small, and threads only contend on a shared 2-core machine)
+  and with freed memory kept in the heap, as the command line runs (refdb.allocator).
 
 With ``--library-size N`` the search index also holds invented entries up to N in all (those
 of ``bench_search_speed.py``: random lines, no real phase), so the decompositions search a
@@ -314,6 +315,9 @@ def main(argv: list[str] | None = None) -> int:
         keep = set(POOL) | set(ABSENT)
         paths = [p for p in paths if p.stem in keep] + [p for p in paths if p.stem not in keep][:28]
     n_scans = args.scans or (8 if args.smoke else 60)
+    from refdb.allocator import keep_freed_memory
+
+    keep_freed_memory()
     r = run(paths, n_scans, args.seed, args.show_misses, args.only, args.library_size)
     if args.library_size:
         print(f"search index padded with invented entries to {args.library_size} entries")

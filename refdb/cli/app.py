@@ -16,6 +16,7 @@ for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
 import typer  # noqa: E402
 
 from refdb import __version__  # noqa: E402
+from refdb.allocator import keep_freed_memory  # noqa: E402
 from refdb.cli._common import state  # noqa: E402
 
 app = typer.Typer(
@@ -85,6 +86,7 @@ for _name in COMMAND_MODULES:
 
 def main() -> None:
     """Console-script entry point."""
+    keep_freed_memory()  # the process is ours (refdb.allocator)
     try:
         app()
     except BrokenPipeError:

@@ -6,7 +6,8 @@ with ``ok=False`` and a one-line message instead of stopping the batch.
 
 Workers are started with the ``spawn`` method and with ``OPENBLAS_NUM_THREADS=1`` (and the
 OpenMP equivalent) in their environment unless the caller set them: each worker's matrices
-are small, and several BLAS threads per worker only fight over the cores.
+are small, and several BLAS threads per worker only fight over the cores. Each worker keeps
+freed memory in its heap (:func:`refdb.allocator.keep_freed_memory`).
 """
 
 from __future__ import annotations
@@ -20,6 +21,7 @@ from multiprocessing import get_context
 from pathlib import Path
 from typing import Any
 
+from refdb.allocator import keep_freed_memory
 from refdb.errors import InputError, RefdbError
 
 MODES: tuple[str, ...] = ("unmix", "search")
@@ -233,7 +235,8 @@ def run_batch(
         for k in saved:
             os.environ.setdefault(k, "1")
         try:
-            with ProcessPoolExecutor(max_workers=workers, mp_context=get_context("spawn")) as pool:
+            with ProcessPoolExecutor(max_workers=workers, mp_context=get_context("spawn"),
+                                     initializer=keep_freed_memory) as pool:
                 futures = {pool.submit(analyse_scan, str(p), options): i for i, p in enumerate(paths)}
                 for fut in as_completed(futures):
                     i = futures[fut]
