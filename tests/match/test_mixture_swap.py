@@ -2,7 +2,8 @@
 
 Fluorite (CaF₂, COD 9009005) and zinc-blende AlP (COD 9008831) have face-centred cubic cells
 equal to 0.2 %, so their reflections coincide; their intensities differ (fluorite's 220 is
-nearly as strong as its 111, AlP's 111 leads clearly). Whichever is accepted first makes the
+nearly as strong as its 111, AlP's 111 leads clearly; from memory, and not relied on: the
+scans below are drawn from pymatgen's intensities). Whichever is accepted first makes the
 other look like a patch on its misfit. Scans are simulated independently of refdb
 (tests/match/_mixture_data.py) from pymatgen's lines.
 """
