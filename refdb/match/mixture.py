@@ -453,35 +453,33 @@ def decompose(
                             swap = (*found, c, ref)
                 elif best is None or trial_fit.chi2 < best[0].chi2:
                     best = (trial_fit, verdict, c, ref, st)
-            if best is None and swap is not None:
-                # Same number of phases, lower χ²: the candidate's intensities fit where the
-                # accepted phase's lattice alone did.
-                sw_fit, sw_starts, verdict, q, c, ref = swap
-                old = refs[q]
-                rejected.pop(c.entry_id, None)
-                rejected[old.id] = Rejection(
-                    old.name, old.formula, old.id,
-                    f"replaced by {ref.name}, whose lines fall on its reflections with intensities that fit "
-                    f"better (χ² {chi2_now:.0f} → {sw_fit.chi2:.0f}, same number of parameters)",
-                )
-                final_no.add(old.id)
-                refs[q] = ref
-                starts = _carry(sw_fit, sw_starts)
-                ev = verdict.evidence(c.score, rnd)
-                evidence[q] = replace(ev, text=f"{ev.text}; took the place of {old.name} (same reflections, "
-                                               f"intensities fit better)")
-                fit, chi2_now = sw_fit, sw_fit.chi2
-                accepted = True
-                break
             if best is not None:
                 trial_fit, verdict, c, ref, st = best
-                rejected.pop(c.entry_id, None)  # turned down in an earlier round for a low gain
                 refs.append(ref)
                 starts = _carry(trial_fit, starts + [st])
                 evidence.append(verdict.evidence(c.score, rnd))
-                fit, chi2_now = trial_fit, trial_fit.chi2
-                accepted = True
-                break
+            elif swap is not None:
+                # Same number of phases, lower χ²: the candidate's intensities fit where the
+                # accepted phase's lattice alone did.
+                trial_fit, sw_starts, verdict, q, c, ref = swap
+                old = refs[q]
+                rejected[old.id] = Rejection(
+                    old.name, old.formula, old.id,
+                    f"replaced by {ref.name}, whose lines fall on its reflections with intensities that fit "
+                    f"better (χ² {chi2_now:.0f} → {trial_fit.chi2:.0f}, same number of parameters)",
+                )
+                final_no.add(old.id)
+                refs[q] = ref
+                starts = _carry(trial_fit, sw_starts)
+                ev = verdict.evidence(c.score, rnd)
+                evidence[q] = replace(ev, text=f"{ev.text}; took the place of {old.name} (same reflections, "
+                                               f"intensities fit better)")
+            else:
+                continue
+            rejected.pop(c.entry_id, None)  # turned down earlier: a low gain, or the objection a swap answers
+            fit, chi2_now = trial_fit, trial_fit.chi2
+            accepted = True
+            break
         if not accepted:
             break
 
