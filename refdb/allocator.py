@@ -19,7 +19,6 @@ it exits.
 from __future__ import annotations
 
 import ctypes
-import ctypes.util
 import os
 import sys
 
@@ -46,8 +45,9 @@ def keep_freed_memory() -> bool:
     if not sys.platform.startswith("linux") or any(v in os.environ for v in USER_SETTINGS):
         return False
     try:
-        libc = ctypes.CDLL(ctypes.util.find_library("c") or "libc.so.6")
-        mallopt = libc.mallopt
+        # The interpreter's own symbols include its C library's: no search for the library
+        # (ctypes.util.find_library runs ldconfig, milliseconds at every start of a worker).
+        mallopt = ctypes.CDLL(None).mallopt
     except (OSError, AttributeError):
         return False
     mallopt.argtypes = [ctypes.c_int, ctypes.c_int]
