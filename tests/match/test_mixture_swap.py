@@ -16,21 +16,20 @@ from refdb.match.refine import DEFAULT_CAGLIOTI, PhaseStart, snip_background
 from ._mixture_data import reference, simulate
 
 
-def _accepted_then_tried(present: str, accepted: str, tried: str):
-    """Calcite with 5 wt % of ``present``; calcite and ``accepted`` refined; ``tried`` added."""
-    calcite = reference("calcite", 1)
-    refs = {k: reference(k, i) for i, k in ((2, "fluorite"), (3, "aluminium phosphide"))}
-    scan, _ = simulate([calcite, refs[present]], [0.95, 0.05], seed=12)
+def _alp_accepted_fluorite_tried(present: str):
+    """Calcite with 5 wt % of ``present``; calcite and AlP refined; fluorite added to them."""
+    calcite, fluorite, alp = reference("calcite", 1), reference("fluorite", 2), reference("aluminium phosphide", 3)
+    scan, _ = simulate([calcite, {"fluorite": fluorite, "aluminium phosphide": alp}[present]], [0.95, 0.05], seed=12)
     ctx = _Context(scan, snip_background(scan), DEFAULT_CAGLIOTI, 3, 25.0)
-    accepted_refs = [calcite, refs[accepted]]
-    fit = ctx.refine(accepted_refs, [PhaseStart(), PhaseStart()])
+    accepted = [calcite, alp]
+    fit = ctx.refine(accepted, [PhaseStart(), PhaseStart()])
     carried = _carry(fit, [PhaseStart(), PhaseStart()])
-    trial = ctx.refine(accepted_refs + [refs[tried]], carried + [PhaseStart()], evaluations=20)
-    return ctx, accepted_refs, carried, trial, refs[tried], fit.chi2
+    trial = ctx.refine(accepted + [fluorite], carried + [PhaseStart()], evaluations=20)
+    return ctx, accepted, carried, trial, fluorite, fit.chi2
 
 
 def test_the_entry_whose_intensities_fit_takes_the_place_of_the_one_accepted_first():
-    ctx, refs, carried, trial, fluorite, chi2_now = _accepted_then_tried("fluorite", "aluminium phosphide", "fluorite")
+    ctx, refs, carried, trial, fluorite, chi2_now = _alp_accepted_fluorite_tried("fluorite")
     swapped = _swap_trial(ctx, refs, carried, trial, 1, fluorite, PhaseStart(), chi2_now)
     assert swapped is not None
     fit, _, verdict, q = swapped
@@ -41,6 +40,5 @@ def test_the_entry_whose_intensities_fit_takes_the_place_of_the_one_accepted_fir
 
 
 def test_the_phase_that_is_there_is_kept():
-    ctx, refs, carried, trial, fluorite, chi2_now = _accepted_then_tried(
-        "aluminium phosphide", "aluminium phosphide", "fluorite")
+    ctx, refs, carried, trial, fluorite, chi2_now = _alp_accepted_fluorite_tried("aluminium phosphide")
     assert _swap_trial(ctx, refs, carried, trial, 1, fluorite, PhaseStart(), chi2_now) is None
