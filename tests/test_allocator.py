@@ -1,7 +1,7 @@
 """refdb.allocator: freed arrays stay in the heap instead of being faulted in again.
 
 What is checked is the kernel's own count of minor page faults (getrusage(2), ru_minflt) in a
-fresh interpreter that makes and drops the same 16 MB array many times. With glibc's default
+fresh interpreter that makes and drops the same 16 MB and 40 MB arrays many times. With glibc's default
 thresholds (mallopt(3): the mmap threshold adapts only up to 32 MB, and the heap top is
 trimmed beyond twice it) the pages are handed back and faulted in again; once the
 thresholds are raised they are reused.
