@@ -6,9 +6,9 @@ import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
-from scipy.optimize import lsq_linear
+from scipy.optimize import least_squares, lsq_linear
 
-from refdb.lm import bounded_lm
+from refdb.lm import bounded_lm, bounded_lm_batch
 
 # NIST Statistical Reference Datasets, nonlinear regression, Misra1a (lower difficulty):
 # y = b1 (1 − exp(−b2 x)), 14 observations (from memory; the certified values below are
@@ -99,3 +99,70 @@ def test_absolute_cost_tolerance_stops_early_but_close():
     # Stopped where neither the last step nor an undamped one gains 1e-3: near the minimum the
     # problem is almost quadratic, so what is left to gain is of that size (NIST certified RSS).
     assert 0.0 <= loose.fun @ loose.fun - MISRA_RSS <= 1e-3
+
+
+def _decay_problems(seed: int, n: int):
+    """n fits of y = A·exp(−k t) + c to noisy data of different lengths, padded with zero
+    residuals to one length (as refdb.scan.profile_fit pads peak windows)."""
+    rng = np.random.default_rng(seed)
+    sizes = rng.integers(8, 40, n)
+    m = int(sizes.max())
+    t = np.zeros((n, m))
+    y = np.zeros((n, m))
+    w = np.zeros((n, m))
+    for i, s in enumerate(sizes):
+        t[i, :s] = np.linspace(0.0, 5.0, s)
+        y[i, :s] = rng.uniform(1, 10) * np.exp(-rng.uniform(0.2, 2.0) * t[i, :s]) + rng.uniform(-1, 1)
+        y[i, :s] += rng.normal(0.0, 0.05, s)
+        w[i, :s] = 1.0
+
+    def evaluate(x, rows):
+        a, k, c = x[:, 0, None], x[:, 1, None], x[:, 2, None]
+        e = np.exp(-k * t[rows])
+        r = (a * e + c - y[rows]) * w[rows]
+        jac = np.stack([e, -a * t[rows] * e, np.ones_like(e)], axis=2) * w[rows][:, :, None]
+        return r, jac
+
+    x0 = np.tile([5.0, 1.0, 0.0], (n, 1))
+    lo = np.tile([0.0, 0.05, -np.inf], (n, 1))
+    hi = np.tile([np.inf, 1.5, np.inf], (n, 1))  # k ≤ 1.5 binds for some problems
+    return evaluate, x0, lo, hi, t, y, w, sizes
+
+
+@settings(max_examples=25, deadline=None)
+@given(seed=st.integers(0, 2**31 - 1), n=st.integers(1, 9))
+def test_a_batch_solves_each_problem_as_alone(seed, n):
+    """Invariant of bounded_lm_batch: problems solved side by side get the result each gets
+    alone (own damping, active set and stops), also with parameters held fixed."""
+    evaluate, x0, lo, hi, *_ = _decay_problems(seed, n)
+    fixed = np.zeros_like(x0, dtype=bool)
+    fixed[::3, 2] = True  # every third problem keeps its offset at the start
+    kw = {"ftol": 1e-10, "xtol": 1e-10, "gtol": 1e-10, "max_nfev": 200}
+    together = bounded_lm_batch(evaluate, x0, lo, hi, fixed=fixed, **kw)
+    for i in range(n):
+        alone = bounded_lm_batch(lambda x, rows, i=i: evaluate(x, np.full(rows.size, i)), x0[i : i + 1],
+                                 lo[i : i + 1], hi[i : i + 1], fixed=fixed[i : i + 1], **kw)[0]
+        # The same arithmetic in a different stack: only the order of floating-point sums can
+        # differ, so 1e-9 relative is generous.
+        np.testing.assert_allclose(together[i].x, alone.x, rtol=1e-9, atol=1e-12)
+        assert together[i].nfev == alone.nfev and together[i].status == alone.status
+        if fixed[i, 2]:
+            assert together[i].x[2] == x0[i, 2]
+
+
+@settings(max_examples=15, deadline=None)
+@given(seed=st.integers(0, 2**31 - 1))
+def test_batched_minima_match_scipy_least_squares(seed):
+    """Each problem's bounded minimum agrees with scipy.optimize.least_squares (trust-region
+    reflective, an independent bounded solver) run on that problem alone."""
+    evaluate, x0, lo, hi, t, y, w, sizes = _decay_problems(seed, 6)
+    fits = bounded_lm_batch(evaluate, x0, lo, hi, ftol=1e-12, xtol=1e-12, gtol=1e-12, max_nfev=400)
+    for i, s in enumerate(sizes):
+        ti, yi = t[i, :s], y[i, :s]
+        ref = least_squares(lambda p: p[0] * np.exp(-p[1] * ti) + p[2] - yi, x0[i], bounds=(lo[i], hi[i]),
+                            method="trf", xtol=1e-14, ftol=1e-14, gtol=1e-14)
+        cost = float(fits[i].fun @ fits[i].fun)
+        # Both stop within ~1e-10 relative of the same minimum of a smooth problem; 1e-7
+        # relative (1e-12 absolute for a perfect fit) leaves room for their different paths.
+        assert cost == pytest.approx(2.0 * ref.cost, rel=1e-7, abs=1e-12)
+        assert np.all(fits[i].x >= lo[i]) and np.all(fits[i].x <= hi[i])

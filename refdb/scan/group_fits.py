@@ -6,6 +6,7 @@ Stages 4–6 of :func:`refdb.scan.peaks.find_peaks`; see that module's docstring
 from __future__ import annotations
 
 import dataclasses
+from collections.abc import Generator
 from dataclasses import dataclass
 
 import numpy as np
@@ -13,7 +14,7 @@ from scipy.signal import find_peaks as _local_maxima
 from scipy.signal import savgol_coeffs, savgol_filter
 
 from refdb.profiles import caglioti_fwhm
-from refdb.scan.profile_fit import FitSetup, GroupResult, fit_group, line_centers
+from refdb.scan.profile_fit import FitSetup, GroupResult, GroupTask, fit_groups, line_centers
 from refdb.scan.types import Scan
 
 #: Refits of a group after removing insignificant peaks.
@@ -65,8 +66,39 @@ def _collapsed(res: GroupResult, fwhm: float) -> np.ndarray:
     return (close & smaller).any(axis=1)
 
 
-def _fit_until_significant(center: np.ndarray, height: np.ndarray, fwhm: float, setup: FitSetup,
-                           min_significance: float) -> tuple[GroupResult | None, int]:
+#: A fitting job: yields the group fits it needs one at a time, is sent each result, and
+#: returns its outcome (see :func:`run_jobs`).
+FitJob = Generator[GroupTask, GroupResult, "tuple[GroupResult | None, int]"]
+
+
+def run_jobs(jobs: list[FitJob], setup: FitSetup) -> list[tuple[GroupResult | None, int]]:
+    """Run fitting jobs side by side; their outcomes in the order of ``jobs``.
+
+    Every round collects the fit each unfinished job asks for next and makes all of them in
+    one call of :func:`fit_groups` (one batched solve per group size), so a scan's groups cost
+    a few solver calls instead of one each.
+    """
+    outcomes: list[tuple[GroupResult | None, int] | None] = [None] * len(jobs)
+    asks: dict[int, GroupTask] = {}
+
+    def advance(i: int, result: GroupResult | None) -> None:
+        try:
+            asks[i] = jobs[i].send(result)  # type: ignore[arg-type]  (None starts a job)
+        except StopIteration as end:
+            outcomes[i] = end.value
+
+    for i in range(len(jobs)):
+        advance(i, None)
+    while asks:
+        order = list(asks)
+        results = fit_groups([asks.pop(i) for i in order], setup)
+        for i, res in zip(order, results, strict=True):
+            advance(i, res)
+    return outcomes  # type: ignore[return-value]
+
+
+def _fit_until_significant(center: np.ndarray, height: np.ndarray, fwhm: float,
+                           min_significance: float) -> FitJob:
     """Fit a group, drop insignificant peaks and refit; None when nothing survives.
 
     Peaks that merged onto a neighbour go first. Otherwise all insignificant peaks go, except
@@ -76,7 +108,7 @@ def _fit_until_significant(center: np.ndarray, height: np.ndarray, fwhm: float, 
     widths = np.full(center.size, fwhm)
     dropped = 0
     for _ in range(_MAX_REFITS + 1):
-        res = fit_group(center, height, widths, setup)
+        res = yield GroupTask(center, height, widths)
         with np.errstate(divide="ignore", invalid="ignore"):
             sig = np.where(res.u_height > 0, res.height / res.u_height, 0.0)
         merged = _collapsed(res, fwhm)
@@ -87,13 +119,13 @@ def _fit_until_significant(center: np.ndarray, height: np.ndarray, fwhm: float, 
             if keep.all():
                 return res, dropped
             if center.size == 1:
-                return _fixed_shape_single(res, fwhm, setup, min_significance, dropped)
+                return (yield from _fixed_shape_single(res, fwhm, min_significance, dropped))
             if not keep.any():
                 keep[np.argmax(sig)] = True
         dropped += int((~keep).sum())
         center, height, widths = res.center[keep], res.height[keep], np.clip(res.fwhm[keep], 0.5 * fwhm, 2 * fwhm)
     # Out of refits (rare): keep what is significant in the last fit.
-    res = fit_group(center, height, widths, setup)
+    res = yield GroupTask(center, height, widths)
     with np.errstate(divide="ignore", invalid="ignore"):
         good = res.height >= min_significance * res.u_height
     if not good.any():
@@ -103,8 +135,7 @@ def _fit_until_significant(center: np.ndarray, height: np.ndarray, fwhm: float, 
     return dataclasses.replace(res, **fields), dropped + int((~good).sum())
 
 
-def _fixed_shape_single(res: GroupResult, fwhm: float, setup: FitSetup, min_significance: float,
-                        dropped: int) -> tuple[GroupResult | None, int]:
+def _fixed_shape_single(res: GroupResult, fwhm: float, min_significance: float, dropped: int) -> FitJob:
     """A lone peak that fell short with a free shape, fitted again with the typical FWHM and
     eta = 0.5; kept when significant then.
 
@@ -112,8 +143,8 @@ def _fixed_shape_single(res: GroupResult, fwhm: float, setup: FitSetup, min_sign
     against the height and inflate its uncertainty: a clear reflection can look insignificant
     although its counts stand far above the noise.
     """
-    refit = fit_group(res.center, res.height, np.array([fwhm]), setup, eta0=np.array([0.5]),
-                      fixed_shape=np.array([True]), span=(res.lo, res.hi))
+    refit = yield GroupTask(res.center, res.height, np.array([fwhm]), eta=np.array([0.5]),
+                            fixed_shape=np.array([True]), span=(res.lo, res.hi))
     with np.errstate(divide="ignore", invalid="ignore"):
         ok = bool(refit.u_height[0] > 0 and refit.height[0] >= min_significance * refit.u_height[0])
     return (refit, dropped) if ok else (None, dropped + 1)
@@ -122,14 +153,9 @@ def _fixed_shape_single(res: GroupResult, fwhm: float, setup: FitSetup, min_sign
 def fit_all(tt: np.ndarray, h: np.ndarray, fwhm: float, setup: FitSetup,
              min_significance: float) -> tuple[list[GroupResult], int]:
     """Group candidates and fit every group; the fits and the number of peaks rejected."""
-    results: list[GroupResult] = []
-    dropped = 0
-    for members in _groups(tt, fwhm, setup):
-        res, n_drop = _fit_until_significant(tt[members], h[members], fwhm, setup, min_significance)
-        dropped += n_drop
-        if res is not None:
-            results.append(res)
-    return results, dropped
+    jobs = [_fit_until_significant(tt[m], h[m], fwhm, min_significance) for m in _groups(tt, fwhm, setup)]
+    outcomes = run_jobs(jobs, setup)
+    return [res for res, _ in outcomes if res is not None], sum(n for _, n in outcomes)
 
 
 #: A residual bump must also exceed this fraction of the fitted net counts there, so that small
@@ -258,19 +284,29 @@ def refit_weak(results: list[GroupResult], trend: ShapeTrend, setup: FitSetup,
     parameters, with s² the free fit's reduced χ² (an F-test-like bound, 3 standard
     deviations of a χ²_n variable; a phase broader than the trend fails it and stays free).
     """
-    out: list[GroupResult] = []
-    n_fixed = 0
+    weak_of = []
+    tasks = []
     for res in results:
         with np.errstate(divide="ignore", invalid="ignore"):
             weak = res.height / res.u_height < _FIX_BELOW
         if not weak.any():
-            out.append(res)
+            weak_of.append(None)
             continue
         w_t, u_w, eta_t, u_eta = trend.at(res.center)
-        fwhm0 = np.where(weak, np.clip(w_t, 0.3 * setup.fwhm, 3.0 * setup.fwhm), res.fwhm)
-        eta0 = np.where(weak, eta_t, res.eta)
-        refit = fit_group(res.center, res.height, fwhm0, setup, eta0=eta0, fixed_shape=weak,
-                          span=(res.lo, res.hi))
+        weak_of.append((weak, u_w, u_eta))
+        tasks.append(GroupTask(res.center, res.height,
+                               np.where(weak, np.clip(w_t, 0.3 * setup.fwhm, 3.0 * setup.fwhm), res.fwhm),
+                               eta=np.where(weak, eta_t, res.eta), fixed_shape=weak, span=(res.lo, res.hi)))
+    refits = iter(fit_groups(tasks, setup))
+    out: list[GroupResult] = []
+    n_fixed = 0
+    for res, weak_info in zip(results, weak_of, strict=True):
+        if weak_info is None:
+            out.append(res)
+            continue
+        weak, u_w, u_eta = weak_info
+        refit = next(refits)
+        fwhm0, eta0 = refit.fwhm, refit.eta  # held at the trend's values where weak (only those count)
         # The trend's own uncertainty reaches the area through area = height / h(w, eta):
         # δA/A = −δw/w + δeta·(2/π − g0)/(eta·2/π + (1 − eta)·g0), with g0 = 2√(ln2/π).
         g0 = 2.0 * np.sqrt(np.log(2.0) / np.pi)

@@ -7,7 +7,8 @@ FWHM and one Lorentzian fraction (the small wavelength dispersion of the width i
 common practice, no source). Under each group the background is a free straight line, started
 from the estimated background at the window's ends (see :func:`_edge_line`). The fit minimises
 Σ((model − counts)/σ)² with the bounded Levenberg–Marquardt solver of :mod:`refdb.lm`, using the
-analytical Jacobian below.
+analytical Jacobian below. The groups of a scan are independent problems: :func:`fit_groups`
+solves all groups with the same number of peaks side by side in one batched solver call.
 
 Standard uncertainties come from the covariance ``s²(JᵀJ)⁻¹`` with ``s² = χ²/(m − p)``
 (Press, Teukolsky, Vetterling & Flannery, Numerical Recipes, 3rd ed., §15.4).
@@ -19,7 +20,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from refdb.lm import bounded_lm
+from refdb.lm import LMResult, bounded_lm_batch
 from refdb.profiles import pseudo_voigt, pv_height_factor
 
 _LN2 = np.log(2.0)
@@ -88,67 +89,67 @@ def line_centers(center: np.ndarray, ratios: np.ndarray) -> tuple[np.ndarray, np
 
     Parameters
     ----------
-    center : ndarray, shape (k,)
+    center : ndarray, shape (..., k)
         Kα1 positions, degrees.
     ratios : ndarray, shape (L,)
 
     Returns
     -------
-    centers, slope : ndarray, shape (k, L)
+    centers, slope : ndarray, shape (..., k, L)
         Line positions (NaN where the line cannot diffract) and their derivative with respect
         to the Kα1 position.
     """
-    half = np.radians(center)[:, None] / 2.0
-    s = ratios[None, :] * np.sin(half)
+    half = np.radians(center)[..., None] / 2.0
+    s = ratios * np.sin(half)
     beyond = s >= 1.0
     if beyond.any():
         s = np.where(beyond, 0.0, s)
     half_l = np.arcsin(s)
-    slope = ratios[None, :] * np.cos(half) / np.cos(half_l)
+    slope = ratios * np.cos(half) / np.cos(half_l)
     if beyond.any():
         half_l, slope = np.where(beyond, np.nan, half_l), np.where(beyond, np.nan, slope)
     return 2.0 * np.degrees(half_l), slope
 
 
-def _unpack(p: np.ndarray, k: int) -> tuple[np.ndarray, ...]:
-    return p[:k], p[k : 2 * k], p[2 * k : 3 * k], p[3 * k : 4 * k], p[4 * k], p[4 * k + 1]
+def _profiles(x: np.ndarray, xm: np.ndarray, p: np.ndarray, k: int, setup: FitSetup) -> tuple[np.ndarray, np.ndarray]:
+    """Model counts above the estimated background and their Jacobian for n groups of k peaks.
 
-
-def _profiles(x: np.ndarray, p: np.ndarray, k: int, setup: FitSetup, with_jac: bool):
-    """Model counts minus background-free part, and (optionally) its Jacobian, shape (m, 4k+2)."""
-    c, a, w, eta, b0, b1 = _unpack(p, k)
-    centers, slope = line_centers(c, setup.ratios)
+    ``x`` has shape (n, m) (each group's window, padded), ``xm`` (n,) the middle of each
+    window (the straight line's origin) and ``p`` (n, 4k + 2) the parameters: k centres, areas,
+    FWHMs and etas, then the line's offset and slope. Returns the model, shape (n, m), and
+    the Jacobian, shape (n, m, 4k + 2).
+    """
+    c, a, w, eta = p[:, :k], p[:, k : 2 * k], p[:, 2 * k : 3 * k], p[:, 3 * k : 4 * k]
+    centers, slope = line_centers(c, setup.ratios)  # (n, k, L)
     # A line that cannot diffract (2θ > 180°) is moved far away, where it contributes nothing.
     missing = np.isnan(centers)
     if missing.any():
         centers, slope = np.where(missing, 1e6, centers), np.where(missing, 0.0, slope)
-    wt = setup.weights[None, :, None]
-    ww = w[:, None, None]
-    u = (x[None, None, :] - centers[:, :, None]) / ww
+    wt = setup.weights[:, None]
+    ww = w[:, :, None, None]
+    u = (x[:, None, None, :] - centers[..., None]) / ww  # (n, k, L, m)
     u2 = u * u
     g = (_G0 / ww) * np.exp(-4.0 * _LN2 * u2)
     den = 1.0 / (1.0 + 4.0 * u2)
     lor = (2.0 / np.pi) / ww * den
-    e = eta[:, None, None]
-    shape = wt * (e * lor + (1.0 - e) * g)  # (k, L, m)
-    xm = 0.5 * (x[0] + x[-1])
-    model = (a[:, None] * shape.sum(axis=1)).sum(axis=0) + b0 + b1 * (x - xm)
-    if not with_jac:
-        return model, None
+    e = eta[:, :, None, None]
+    shape = (wt * (e * lor + (1.0 - e) * g)).sum(axis=2)  # (n, k, m)
+    offset = x - xm[:, None]
+    model = np.einsum("nk,nkm->nm", a, shape) + p[:, 4 * k, None] + p[:, 4 * k + 1, None] * offset
     dg_dc = g * (8.0 * _LN2) * u / ww
     dl_dc = lor * 8.0 * u * den / ww
-    dp_dc = (wt * (e * dl_dc + (1.0 - e) * dg_dc) * slope[:, :, None]).sum(axis=1)
+    dp_dc = (wt * (e * dl_dc + (1.0 - e) * dg_dc) * slope[..., None]).sum(axis=2)
     dg_dw = g * (-1.0 + 8.0 * _LN2 * u2) / ww
     dl_dw = lor * (-1.0 + 8.0 * u2 * den) / ww
-    dp_dw = (wt * (e * dl_dw + (1.0 - e) * dg_dw)).sum(axis=1)
-    dp_de = (wt * (lor - g)).sum(axis=1)
-    jac = np.empty((x.size, 4 * k + 2))
-    jac[:, :k] = (a[:, None] * dp_dc).T
-    jac[:, k : 2 * k] = shape.sum(axis=1).T
-    jac[:, 2 * k : 3 * k] = (a[:, None] * dp_dw).T
-    jac[:, 3 * k : 4 * k] = (a[:, None] * dp_de).T
-    jac[:, 4 * k] = 1.0
-    jac[:, 4 * k + 1] = x - xm
+    dp_dw = (wt * (e * dl_dw + (1.0 - e) * dg_dw)).sum(axis=2)
+    dp_de = (wt * (lor - g)).sum(axis=2)
+    jac = np.empty((x.shape[0], x.shape[1], 4 * k + 2))
+    jac[:, :, :k] = (a[:, :, None] * dp_dc).transpose(0, 2, 1)
+    jac[:, :, k : 2 * k] = shape.transpose(0, 2, 1)
+    jac[:, :, 2 * k : 3 * k] = (a[:, :, None] * dp_dw).transpose(0, 2, 1)
+    jac[:, :, 3 * k : 4 * k] = (a[:, :, None] * dp_de).transpose(0, 2, 1)
+    jac[:, :, 4 * k] = 1.0
+    jac[:, :, 4 * k + 1] = offset
     return model, jac
 
 
@@ -158,84 +159,134 @@ def group_window(center: np.ndarray, fwhm: float, setup: FitSetup) -> tuple[floa
     return float(np.nanmin(lines)) - WINDOW_FWHM * fwhm, float(np.nanmax(lines)) + WINDOW_FWHM * fwhm
 
 
-def fit_group(center0: np.ndarray, height0: np.ndarray, fwhm0: np.ndarray, setup: FitSetup, *,
-              eta0: np.ndarray | None = None, fixed_shape: np.ndarray | None = None,
-              span: tuple[int, int] | None = None) -> GroupResult:
-    """Fit one group of overlapping peaks.
+@dataclass(frozen=True, eq=False)
+class GroupTask:
+    """One fit of a group of overlapping peaks, for :func:`fit_groups`.
 
-    Parameters
+    Attributes
     ----------
-    center0, height0, fwhm0 : ndarray, shape (k,)
+    center, height, fwhm : ndarray, shape (k,)
         Starting Kα1 positions (degrees), net heights (counts) and FWHMs (degrees).
-    setup : FitSetup
-    eta0 : ndarray, shape (k,), optional
+    eta : ndarray, shape (k,), optional
         Starting Lorentzian fractions (default 0.5).
     fixed_shape : ndarray of bool, shape (k,), optional
-        Peaks whose FWHM and eta stay at ``fwhm0`` and ``eta0`` (their uncertainties are then 0
-        and do not enter the other parameters' covariance).
+        Peaks whose FWHM and eta stay at their starts (their uncertainties are then 0 and do
+        not enter the other parameters' covariance).
     span : (int, int), optional
         The slice of the scan to fit; by default the lines ± :data:`WINDOW_FWHM` FWHMs.
-
-    Returns
-    -------
-    GroupResult
-        Bounds: each centre within ±max(FWHM, 2 steps) of its start, FWHM within 0.25–4 times
-        the typical FWHM, eta within 0–1, areas non-negative.
     """
+
+    center: np.ndarray
+    height: np.ndarray
+    fwhm: np.ndarray
+    eta: np.ndarray | None = None
+    fixed_shape: np.ndarray | None = None
+    span: tuple[int, int] | None = None
+
+
+@dataclass(frozen=True, eq=False)
+class _Prepared:
+    """A task's window and the starts, bounds and fixed mask of its parameters."""
+
+    lo: int
+    hi: int
+    bkg: np.ndarray
+    p0: np.ndarray
+    lower: np.ndarray
+    upper: np.ndarray
+    fixed: np.ndarray
+
+
+def _prepare(task: GroupTask, setup: FitSetup) -> _Prepared:
+    center0, height0, fwhm0 = task.center, task.height, task.fwhm
     k = center0.size
-    if span is None:
+    if task.span is None:
         lo_x, hi_x = group_window(center0, float(np.max(fwhm0)), setup)
         lo, hi = np.searchsorted(setup.x, [lo_x, hi_x])
         hi = max(hi, lo + 4 * k + 3)
         lo = max(0, min(lo, hi - (4 * k + 3)))
         hi = min(hi, setup.x.size)
     else:
-        lo, hi = span
-    x, y, s = setup.x[lo:hi], setup.y[lo:hi], setup.sigma[lo:hi]
+        lo, hi = task.span
+    x = setup.x[lo:hi]
     bkg = _edge_line(x, setup.background[lo:hi])
     step = float(np.median(np.diff(x))) if x.size > 1 else setup.fwhm
     reach = np.maximum(fwhm0, 2.0 * step)
-    eta0 = np.full(k, 0.5) if eta0 is None else np.clip(np.asarray(eta0, dtype=float), 0.0, 1.0)
+    eta0 = np.full(k, 0.5) if task.eta is None else np.clip(np.asarray(task.eta, dtype=float), 0.0, 1.0)
     area0 = np.maximum(height0, 1.0) / pv_height_factor(fwhm0, eta0) / (1.0 + 0.5 * setup.weights[1:].sum())
     w_lo, w_hi = 0.25 * setup.fwhm, 4.0 * max(setup.fwhm, float(fwhm0.max()))
     p0 = np.concatenate([center0, area0, np.clip(fwhm0, w_lo * 1.01, w_hi * 0.99), eta0, [0.0, 0.0]])
     lower = np.concatenate([center0 - reach, np.zeros(k), np.full(k, w_lo), np.zeros(k), [-np.inf, -np.inf]])
     upper = np.concatenate([center0 + reach, np.full(k, np.inf), np.full(k, w_hi), np.ones(k), [np.inf, np.inf]])
-    free = np.ones(p0.size, dtype=bool)
-    if fixed_shape is not None and np.any(fixed_shape):
-        fixed = np.flatnonzero(fixed_shape)
-        free[2 * k + fixed] = False
-        free[3 * k + fixed] = False
-        p0[2 * k + fixed] = fwhm0[fixed]
-        p0[3 * k + fixed] = eta0[fixed]
+    fixed = np.zeros(p0.size, dtype=bool)
+    if task.fixed_shape is not None and np.any(task.fixed_shape):
+        held = np.flatnonzero(task.fixed_shape)
+        fixed[2 * k + held] = fixed[3 * k + held] = True
+        p0[2 * k + held] = fwhm0[held]
+        p0[3 * k + held] = eta0[held]
+    return _Prepared(int(lo), int(hi), bkg, p0, lower, upper, fixed)
 
-    def full(q: np.ndarray) -> np.ndarray:
-        p = p0.copy()
-        p[free] = q
-        return p
 
-    # The solver asks for the Jacobian right after the residual at the same point; both come
-    # from one evaluation of the profiles, and the last Jacobian is kept for that call.
-    last: dict[str, np.ndarray] = {}
+def fit_groups(tasks: list[GroupTask], setup: FitSetup) -> list[GroupResult]:
+    """Fit groups of overlapping peaks, each on its own; the results in the order of ``tasks``.
 
-    def residual(q: np.ndarray) -> np.ndarray:
-        model, jac = _profiles(x, full(q), k, setup, True)
-        last["q"], last["jac"] = q, jac
-        return (model + bkg - y) / s
+    Groups with the same number of peaks are solved side by side by
+    :func:`refdb.lm.bounded_lm_batch` (their windows padded to one length with points of zero
+    weight), which gives each the same fit as alone at a fraction of the overhead.
 
-    def jacobian(q: np.ndarray) -> np.ndarray:
-        jac = last["jac"] if np.array_equal(q, last.get("q")) else _profiles(x, full(q), k, setup, True)[1]
-        return jac[:, free] / s[:, None]
+    Returns
+    -------
+    list of GroupResult
+        Bounds: each centre within ±max(FWHM, 2 steps) of its start, FWHM within 0.25–4 times
+        the typical FWHM, eta within 0–1, areas non-negative.
+    """
+    out: list[GroupResult | None] = [None] * len(tasks)
+    by_size: dict[int, list[int]] = {}
+    for i, t in enumerate(tasks):
+        by_size.setdefault(t.center.size, []).append(i)
+    for k, members in by_size.items():
+        for i, res in zip(members, _fit_same_size([tasks[i] for i in members], k, setup), strict=True):
+            out[i] = res
+    return out  # type: ignore[return-value]
+
+
+def _fit_same_size(tasks: list[GroupTask], k: int, setup: FitSetup) -> list[GroupResult]:
+    prep = [_prepare(t, setup) for t in tasks]
+    n = len(prep)
+    size = np.array([q.hi - q.lo for q in prep])
+    m = int(size.max())
+    x = np.empty((n, m))
+    y = np.zeros((n, m))
+    inv_s = np.zeros((n, m))  # zero weight on the padding
+    bkg = np.zeros((n, m))
+    for i, q in enumerate(prep):
+        j = size[i]
+        x[i, :j], x[i, j:] = setup.x[q.lo : q.hi], setup.x[q.hi - 1]
+        y[i, :j], inv_s[i, :j], bkg[i, :j] = setup.y[q.lo : q.hi], 1.0 / setup.sigma[q.lo : q.hi], q.bkg
+    xm = 0.5 * (x[:, 0] + x[np.arange(n), size - 1])
+
+    def evaluate(p: np.ndarray, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        model, jac = _profiles(x[rows], xm[rows], p, k, setup)
+        w = inv_s[rows]
+        return (model + bkg[rows] - y[rows]) * w, jac * w[:, :, None]
 
     # Relative tolerances 1e-6 stop far below the statistical uncertainties of the parameters
     # (≥ 1e-4 relative for any peak worth reporting); and once χ² cannot fall by 0.01 more,
     # every parameter is within 0.1 standard uncertainty of its minimum, which is plenty.
-    fit = bounded_lm(residual, jacobian, p0[free], lower[free], upper[free], ftol=1e-6, xtol=1e-6, gtol=1e-6,
-                     cost_atol=0.01, max_nfev=60 * k + 100)
-    p = full(fit.x)
-    c, a, w, eta, _, _ = _unpack(p, k)
+    fits = bounded_lm_batch(evaluate, np.array([q.p0 for q in prep]), np.array([q.lower for q in prep]),
+                            np.array([q.upper for q in prep]), fixed=np.array([q.fixed for q in prep]),
+                            ftol=1e-6, xtol=1e-6, gtol=1e-6, cost_atol=0.01, max_nfev=60 * k + 100)
+    return [_result(q, fit, k, setup, int(j)) for q, fit, j in zip(prep, fits, size, strict=True)]
+
+
+def _result(q: _Prepared, fit: LMResult, k: int, setup: FitSetup, size: int) -> GroupResult:
+    """The fitted peaks, their uncertainties and the fitted counts of one group."""
+    x, y, s = setup.x[q.lo : q.hi], setup.y[q.lo : q.hi], setup.sigma[q.lo : q.hi]
+    p, free = fit.x, ~q.fixed
+    fun = fit.fun[:size]
+    c, a, w, eta = p[:k], p[k : 2 * k], p[2 * k : 3 * k], p[3 * k : 4 * k]
     cov = np.zeros((p.size, p.size))
-    cov[np.ix_(free, free)] = _covariance(fit.jac, fit.fun, int(free.sum()))
+    cov[np.ix_(free, free)] = _covariance(fit.jac[:size][:, free], fun, int(free.sum()))
     hf = pv_height_factor(w, eta)
     grad_h = np.zeros((k, p.size))
     idx = np.arange(k)
@@ -244,14 +295,14 @@ def fit_group(center0: np.ndarray, height0: np.ndarray, fwhm0: np.ndarray, setup
     grad_h[idx, 3 * k + idx] = a * (2.0 / np.pi - _G0) / w
     var = np.diag(cov)
     u_height = np.sqrt(np.maximum(np.einsum("kp,pq,kq->k", grad_h, cov, grad_h), 0.0))
-    model = fit.fun * s + y  # the fitted counts, from the residual the solver returned
-    local = bkg + p[4 * k] + p[4 * k + 1] * (x - 0.5 * (x[0] + x[-1]))
+    model = fun * s + y  # the fitted counts, from the residual the solver returned
+    local = q.bkg + p[4 * k] + p[4 * k + 1] * (x - 0.5 * (x[0] + x[-1]))
     return GroupResult(
         center=c, area=a, height=a * hf, fwhm=w, eta=eta,
         u_center=np.sqrt(np.maximum(var[:k], 0.0)), u_area=np.sqrt(np.maximum(var[k : 2 * k], 0.0)),
         u_height=u_height, u_fwhm=np.sqrt(np.maximum(var[2 * k : 3 * k], 0.0)),
-        lo=int(lo), hi=int(hi), model=model, local_background=local, converged=fit.success,
-        chi2=float(fit.fun @ fit.fun), n_free=int(free.sum()),
+        lo=q.lo, hi=q.hi, model=model, local_background=local, converged=fit.success,
+        chi2=float(fun @ fun), n_free=int(free.sum()),
     )
 
 
