@@ -640,9 +640,8 @@ class _Context:
         self.threshold = threshold
         self.eta = 0.5  # pseudo-Voigt mixing of the latest full refinement
         # What every scale-only solve shares: the net counts, and weights and background basis.
-        self._target = scan.counts - background
         self._linear = LinearSolver(_chebyshev_basis(scan.two_theta, degree),
-                                    1.0 / np.clip(scan.sigma, 1e-6, None) ** 2)
+                                    1.0 / np.clip(scan.sigma, 1e-6, None) ** 2, scan.counts - background)
 
     def refine(self, refs, starts, *, quick: bool = False, evaluations: int = 40) -> RefinementResult:
         fit = refine_mixture(
@@ -681,7 +680,7 @@ class _Context:
 
     def _chi2(self, cols: np.ndarray) -> float:
         """χ² of the best non-negative combination of ``cols`` plus the background."""
-        return self._linear.chi2(cols, self._target)
+        return self._linear.chi2(cols)
 
     def _unit_columns(self, fit: RefinementResult) -> list[np.ndarray]:
         return [p.profile / p.scale if p.scale > 0 else np.zeros_like(p.profile) for p in fit.phases]

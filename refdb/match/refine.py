@@ -390,7 +390,7 @@ def _chebyshev_basis(x: np.ndarray, degree: int) -> np.ndarray:
 
 class LinearSolver:
     """Scales ≥ 0 for profile columns and free background coefficients minimising
-    Σ w (target − cols·s − basis·c)², for one basis and one set of weights.
+    Σ w (target − cols·s − basis·c)², for one basis, one set of weights and one target.
 
     The free background coefficients are eliminated first: with W = diag(√w) and the thin QR
     factorisation W·basis = QR, the problem becomes non-negative least squares (Lawson &
@@ -399,26 +399,30 @@ class LinearSolver:
     once; refinement solves this thousands of times.
     """
 
-    def __init__(self, basis: np.ndarray, w: np.ndarray) -> None:
+    def __init__(self, basis: np.ndarray, w: np.ndarray, target: np.ndarray) -> None:
         self.basis = basis
         self.sw = np.sqrt(w)
+        self.target = target
         self.q, self.r = np.linalg.qr(basis * self.sw[:, None])
+        # The weighted target and its part outside the background's span, made once.
+        self._wt = target * self.sw
+        self._pt = self._wt - self.q @ (self.q.T @ self._wt)
 
-    def chi2(self, cols: np.ndarray, target: np.ndarray) -> float:
+    def chi2(self, cols: np.ndarray) -> float:
         """Σ w (target − cols·s − basis·c)² at the solution."""
-        s, c = self.solve(cols, target)
-        r = (target - cols @ s - self.basis @ c) * self.sw
+        s, c = self.solve(cols)
+        r = (self.target - cols @ s - self.basis @ c) * self.sw
         return float(r @ r)
 
-    def solve(self, cols: np.ndarray, target: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    def solve(self, cols: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Scales s ≥ 0 of ``cols`` (shape (n, k)) and background coefficients c."""
         wc = cols * self.sw[:, None]
-        wt = target * self.sw
+        wt = self._wt
         pc = wc - self.q @ (self.q.T @ wc)
-        pt = wt - self.q @ (self.q.T @ wt)
         if cols.shape[1]:
             norm = np.linalg.norm(pc, axis=0)
             norm[norm == 0] = 1.0  # a column inside the background's span gets scale 0
-            s, _ = nnls(pc / norm, pt, maxiter=50 * cols.shape[1])
+            s, _ = nnls(pc / norm, self._pt, maxiter=50 * cols.shape[1])
             s = s / norm
         else:
             s = np.zeros(0)
@@ -504,8 +508,8 @@ def refine_mixture(
     lines = [_prepared(r, scan.radiation, x) for r in phases]
     model = _Model(x, scan.radiation, lines, starts, caglioti or DEFAULT_CAGLIOTI, per_phase_shift)
     basis = _chebyshev_basis(x, background_degree)
-    linear = LinearSolver(basis, w)
     target = y - bkg0
+    linear = LinearSolver(basis, w, target)
     if x.size <= len(model.names) + len(phases) + basis.shape[1]:
         raise InputError("the scan has too few points for this many phases", "use a wider 2θ range")
 
@@ -524,7 +528,7 @@ def refine_mixture(
                 cols = np.column_stack([model.profile(p, theta) for p in range(len(lines))])
             else:
                 cols = np.column_stack([d.profile for _, d in derivs])
-            cache[key] = (cols, *linear.solve(cols, target), derivs)
+            cache[key] = (cols, *linear.solve(cols), derivs)
         return cache[key]
 
     def resid(theta: np.ndarray) -> np.ndarray:

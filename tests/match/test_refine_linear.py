@@ -26,7 +26,7 @@ def test_scales_and_background_match_bounded_least_squares(seed, phases, degree)
     truth = rng.uniform(-1.0, 3.0, phases)  # negative truths make the bound active
     target = cols @ truth + basis @ rng.normal(size=degree + 1) + rng.normal(scale=0.1, size=x.size)
     w = rng.uniform(0.5, 2.0, x.size)
-    s, c = LinearSolver(basis, w).solve(cols, target)
+    s, c = LinearSolver(basis, w, target).solve(cols)
     assert np.all(s >= 0)
     sw = np.sqrt(w)
     a = np.hstack([cols, basis]) * sw[:, None]
