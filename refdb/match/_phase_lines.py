@@ -10,6 +10,7 @@ stick's d-spacing, wavelength and nominal 2θ.
 
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -58,12 +59,17 @@ class PhaseSticks:
         if d_scale == 1.0:
             return self.two_theta, self.strength
         tt = two_theta_from_d(self.d * d_scale, self.wavelength)
-        mono = self.monochromator_two_theta
         with np.errstate(invalid="ignore", divide="ignore"):
-            ratio = lorentz_polarisation(tt, monochromator_two_theta=mono) / lorentz_polarisation(
-                self.two_theta, monochromator_two_theta=mono
-            )
-        return tt, np.where(np.isfinite(ratio), self.strength * ratio, 0.0)
+            moved = self._strength_per_lp * lorentz_polarisation(tt, monochromator_two_theta=self.monochromator_two_theta)
+        return tt, np.where(np.isfinite(moved), moved, 0.0)
+
+    @functools.cached_property
+    def _strength_per_lp(self) -> np.ndarray:
+        """Strength without its Lorentz–polarisation factor (made once: refinement moves the
+        sticks thousands of times)."""
+        with np.errstate(invalid="ignore", divide="ignore"):
+            lp = lorentz_polarisation(self.two_theta, monochromator_two_theta=self.monochromator_two_theta)
+            return np.where(np.isfinite(lp) & (lp > 0), self.strength / lp, 0.0)
 
     def texture(self, axis: tuple[int, int, int], ratio: float) -> np.ndarray:
         """March–Dollase factor of each stick (see :func:`refdb.structure.pattern.orientation_factor`)."""
