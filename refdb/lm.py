@@ -40,7 +40,7 @@ STATUS = {0: "evaluation limit reached", 1: "gradient tolerance", 2: "cost toler
 
 @dataclass(frozen=True, eq=False)
 class LMResult:
-    """Outcome of one problem of :func:`bounded_lm_batch` (or :func:`bounded_lm`).
+    """Outcome of one problem of :func:`bounded_lm_batch`.
 
     Attributes
     ----------
@@ -69,26 +69,6 @@ class LMResult:
     @property
     def message(self) -> str:
         return STATUS[self.status]
-
-
-def bounded_lm(
-    residual: Callable[[np.ndarray], np.ndarray],
-    jacobian: Callable[[np.ndarray], np.ndarray],
-    x0: np.ndarray,
-    lower: np.ndarray,
-    upper: np.ndarray,
-    **options: float,
-) -> LMResult:
-    """Minimise ½‖r(x)‖² subject to lower ≤ x ≤ upper: one problem of :func:`bounded_lm_batch`.
-
-    ``residual`` maps x (p,) to r (m,), ``jacobian`` x to J (m, p); both are called at every
-    trial point. ``options`` are those of :func:`bounded_lm_batch`.
-    """
-
-    def evaluate(x: np.ndarray, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        return residual(x[0])[None], jacobian(x[0])[None]
-
-    return bounded_lm_batch(evaluate, np.atleast_2d(x0), np.atleast_2d(lower), np.atleast_2d(upper), **options)[0]
 
 
 def bounded_lm_batch(
@@ -280,4 +260,4 @@ def _gauss_newton_gain(a: np.ndarray, g: np.ndarray) -> np.ndarray:
     return out
 
 
-__all__ = ["LMResult", "STATUS", "bounded_lm", "bounded_lm_batch"]
+__all__ = ["LMResult", "STATUS", "bounded_lm_batch"]

@@ -8,7 +8,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy.optimize import least_squares, lsq_linear
 
-from refdb.lm import bounded_lm, bounded_lm_batch
+from refdb.lm import LMResult, bounded_lm_batch
 
 # NIST Statistical Reference Datasets, nonlinear regression, Misra1a (lower difficulty):
 # y = b1 (1 − exp(−b2 x)), 14 observations (from memory; the certified values below are
@@ -17,6 +17,15 @@ MISRA_X = np.array([77.6, 114.9, 141.1, 190.8, 239.9, 289.0, 332.8, 378.4, 434.8
 MISRA_Y = np.array([10.07, 14.73, 17.94, 23.93, 29.61, 35.18, 40.02, 44.82, 50.76, 55.05, 61.01, 66.40, 75.47, 81.78])
 MISRA_B = np.array([2.3894212918e02, 5.5015643181e-04])  # certified
 MISRA_RSS = 1.2455138894e-01  # certified residual sum of squares
+
+
+def bounded_lm(residual, jacobian, x0, lower, upper, **options) -> LMResult:
+    """One problem (x → r, x → J) solved by bounded_lm_batch as a batch of one."""
+
+    def evaluate(x, rows):
+        return residual(x[0])[None], jacobian(x[0])[None]
+
+    return bounded_lm_batch(evaluate, np.atleast_2d(x0), np.atleast_2d(lower), np.atleast_2d(upper), **options)[0]
 
 
 def _split(fun_jac):
