@@ -443,11 +443,12 @@ def decompose(
         # side by side; the others one at a time, in order.
         groups = [close[g0 : g0 + REFINED_PER_ROUND] for g0 in range(0, len(close), REFINED_PER_ROUND)]
         groups += [[o] for o in others]
+        gof_floor = ctx.gof_floor(fit)
         for group in groups:
             best = swap = None
-            drop = ctx.threshold * ctx.gof_floor(fit)  # largest χ² drop by refinement in the group
+            drop = ctx.threshold * gof_floor  # largest χ² drop by refinement in the group
             for gain, c, ref, st in group:
-                before = chi2_now - gain * ctx.gof_floor(fit)  # scale-only χ²
+                before = chi2_now - gain * gof_floor  # scale-only χ²
                 if best is not None and before - best[0].chi2 > CONTENDER_REACH * drop:
                     continue  # out of reach of the best refined contender (see CONTENDER_REACH)
                 carried = _carry(fit, starts)

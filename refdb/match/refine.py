@@ -417,7 +417,6 @@ class LinearSolver:
     def solve(self, cols: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Scales s ≥ 0 of ``cols`` (shape (n, k)) and background coefficients c."""
         wc = cols * self.sw[:, None]
-        wt = self._wt
         pc = wc - self.q @ (self.q.T @ wc)
         if cols.shape[1]:
             norm = np.linalg.norm(pc, axis=0)
@@ -426,7 +425,7 @@ class LinearSolver:
             s = s / norm
         else:
             s = np.zeros(0)
-        c = np.linalg.solve(self.r, self.q.T @ (wt - wc @ s)) if self.r.size else np.zeros(0)
+        c = np.linalg.solve(self.r, self.q.T @ (self._wt - wc @ s)) if self.r.size else np.zeros(0)
         return s, c
 
 
@@ -523,11 +522,12 @@ def refine_mixture(
         key = theta.tobytes()
         if key not in cache:
             cache.clear()
-            derivs = [model.derivatives(p, theta) for p in range(len(lines))] if refine else None
-            if derivs is None:
-                cols = np.column_stack([model.profile(p, theta) for p in range(len(lines))])
-            else:
+            if refine:
+                derivs = [model.derivatives(p, theta) for p in range(len(lines))]
                 cols = np.column_stack([d.profile for _, d in derivs])
+            else:
+                derivs = None
+                cols = np.column_stack([model.profile(p, theta) for p in range(len(lines))])
             cache[key] = (cols, *linear.solve(cols), derivs)
         return cache[key]
 
