@@ -17,18 +17,7 @@ import pytest
 import refdb.match.mixture as mixture
 from refdb.match.mixture import decompose
 
-from ._mixture_data import build_library, reference, simulate
-
-
-@pytest.fixture(scope="module")
-def library(tmp_path_factory):
-    from refdb.library import open_library
-
-    path = tmp_path_factory.mktemp("lib") / "lib.sqlite"
-    ids = build_library(path, absent=("hematite",))
-    lib = open_library(path)
-    yield lib, ids
-    lib.close()
+from ._mixture_data import reference, simulate
 
 
 _REFINE = mixture._Context.refine
@@ -50,8 +39,8 @@ def _run(lib, scan, monkeypatch, reach):
 
 
 @pytest.mark.parametrize("seed", [4, 5])
-def test_far_contenders_are_skipped_without_changing_the_result(library, monkeypatch, seed):
-    lib, _ = library
+def test_far_contenders_are_skipped_without_changing_the_result(mixture_library, monkeypatch, seed):
+    lib, _ = mixture_library
     scan, _ = simulate([reference("cerianite"), reference("quartz")], [0.7, 0.3], zero_shift=0.02, seed=seed)
     every, every_trials = _run(lib, scan, monkeypatch, math.inf)
     res, trials = _run(lib, scan, monkeypatch, _REACH)

@@ -15,29 +15,15 @@ import pytest
 from refdb.errors import InputError
 from refdb.match.mixture import decompose
 
-from ._mixture_data import build_library, reference, simulate
-
-#: In the library: every phase of PHASES except hematite, which plays the unknown.
-ABSENT = "hematite"
-
-
-@pytest.fixture(scope="module")
-def library(tmp_path_factory):
-    from refdb.library import open_library
-
-    path = tmp_path_factory.mktemp("lib") / "lib.sqlite"
-    ids = build_library(path, absent=(ABSENT,))
-    lib = open_library(path)
-    yield lib, ids
-    lib.close()
+from ._mixture_data import ABSENT, build_library, reference, simulate
 
 
 def _names(result):
     return {p.name for p in result.phases}
 
 
-def test_minor_phase_in_binary(library):
-    lib, ids = library
+def test_minor_phase_in_binary(mixture_library):
+    lib, ids = mixture_library
     scan, _ = simulate([reference("quartz"), reference("rutile")], [0.95, 0.05], zero_shift=0.02, seed=3)
     res = decompose(scan, lib)
     assert [p.entry_id for p in res.phases] == [ids["quartz"], ids["rutile"]]
@@ -52,8 +38,8 @@ def test_minor_phase_in_binary(library):
     json.dumps(res.as_dict(), allow_nan=False)
 
 
-def test_four_phases(library):
-    lib, _ = library
+def test_four_phases(mixture_library):
+    lib, _ = mixture_library
     truth = {"Quartz": 0.45, "Corundum": 0.30, "Calcite": 0.17, "Rutile": 0.08}
     refs = [reference(k) for k in ("quartz", "corundum", "calcite", "rutile")]
     scan, _ = simulate(refs, list(truth.values()), zero_shift=-0.03, seed=21)
@@ -67,8 +53,8 @@ def test_four_phases(library):
     assert res.rwp < 0.15 and res.gof < 2.0
 
 
-def test_absent_phase_shows_as_unexplained_peaks(library):
-    lib, _ = library
+def test_absent_phase_shows_as_unexplained_peaks(mixture_library):
+    lib, _ = mixture_library
     hem = reference(ABSENT)
     scan, _ = simulate([reference("quartz"), hem], [0.6, 0.4], seed=5)
     res = decompose(scan, lib)
@@ -84,8 +70,8 @@ def test_absent_phase_shows_as_unexplained_peaks(library):
         assert np.min(np.abs(res.unexplained.two_theta - t)) < 0.1, t
 
 
-def test_detection_limit_rises_with_noise(library):
-    lib, ids = library
+def test_detection_limit_rises_with_noise(mixture_library):
+    lib, ids = mixture_library
     refs = [reference("quartz"), reference("rutile")]
     limits = []
     for counts in (20000.0, 2000.0):  # ten times fewer counts: √10 more relative noise
@@ -99,8 +85,8 @@ def test_detection_limit_rises_with_noise(library):
     assert 2.0 < limits[1] / limits[0] < 5.0
 
 
-def test_internal_standard_gives_absolute_fractions(library):
-    lib, ids = library
+def test_internal_standard_gives_absolute_fractions(mixture_library):
+    lib, ids = mixture_library
     # Crystalline part: quartz 40, corundum 20, rutile 40 wt %. Declaring the corundum at
     # 10 wt % of the specimen means half the specimen is not crystalline-identified:
     # Chung (1974) J. Appl. Cryst. 7, 526 → quartz 0.2, rutile 0.2, rest 0.5.
@@ -120,8 +106,8 @@ def test_internal_standard_gives_absolute_fractions(library):
     assert [p for p in d["phases"] if p["internal_standard"]][0]["entry_id"] == ids["corundum"]
 
 
-def test_background_only_scan_gives_nothing(library):
-    lib, _ = library
+def test_background_only_scan_gives_nothing(mixture_library):
+    lib, _ = mixture_library
     from refdb.scan.types import Scan
 
     from ._mixture_data import cu_radiation
@@ -135,8 +121,8 @@ def test_background_only_scan_gives_nothing(library):
     json.dumps(res.as_dict(), allow_nan=False)
 
 
-def test_bad_options(library):
-    lib, _ = library
+def test_bad_options(mixture_library):
+    lib, _ = mixture_library
     scan, _ = simulate([reference("zincite")], [1.0], seed=1)
     with pytest.raises(InputError):
         decompose(scan, lib, max_phases=0)
