@@ -169,12 +169,17 @@ class LineScores:
     predicted: np.ndarray
 
 
-def _predict(lines: LineSet, z: np.ndarray, s: np.ndarray, eps: np.ndarray, wavelength: float) -> np.ndarray:
+def _predict(lines: LineSet, z: np.ndarray, s: np.ndarray, eps: np.ndarray,
+             wavelength: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Predicted 2θ (NaN where a line cannot diffract) and sin θ, cos θ of the unshifted
+    line (cos θ = √(1 − sin²θ) saves a second trigonometric pass)."""
     d = lines.d * (1.0 + eps[:, None])
     with np.errstate(invalid="ignore", divide="ignore"):
         x = wavelength / (2.0 * d)
-        tt = np.where(x <= 1.0, 2.0 * np.degrees(np.arcsin(np.clip(x, 0.0, 1.0))), np.nan)
-    return tt + z[:, None] + s[:, None] * np.cos(np.radians(tt) / 2.0)
+        sin_t = np.where(x <= 1.0, x, np.nan)
+        tt = 2.0 * np.degrees(np.arcsin(sin_t))
+        cos_t = np.sqrt(1.0 - sin_t * sin_t)
+    return tt + z[:, None] + s[:, None] * cos_t, sin_t, cos_t
 
 
 class _Nearest:
@@ -252,12 +257,12 @@ def score_lines(peaks: PeakList, lines: LineSet, *, d_scale: bool = True,
     jac = np.empty(fit.d.shape + (3,))
     jac[..., 0] = 1.0
     for widen in (1.5, 1.0, 1.0):
-        pred = _predict(fit, z, s, eps, lam)
+        pred, sin_t, cos_t = _predict(fit, z, s, eps, lam)
         pick, delta, ok = nearest(pred, tol * widen)
-        tt0 = pred - z[:, None] - s[:, None] * np.cos(np.radians(pred) / 2.0)
-        th = np.radians(np.where(np.isfinite(tt0), tt0, 0.0)) / 2.0
-        jac[..., 1] = np.cos(th)
-        jac[..., 2] = -2.0 * np.degrees(np.tan(th)) / (1.0 + eps[:, None])
+        # d(2θ)/ds = cos θ and d(2θ)/dε = −2 tan θ (degrees) / (1 + ε); finite on padding.
+        on = np.isfinite(pred)
+        jac[..., 1] = np.where(on, cos_t, 1.0)
+        jac[..., 2] = np.where(on, -2.0 * np.degrees(sin_t / np.maximum(cos_t, 1e-12)), 0.0) / (1.0 + eps[:, None])
         wt = np.where(ok, wl / tol[pick] ** 2, 0.0)
         wj = jac * wt[..., None]
         normal = np.matmul(wj.transpose(0, 2, 1), jac) + np.diag(prior)
@@ -269,7 +274,7 @@ def score_lines(peaks: PeakList, lines: LineSet, *, d_scale: bool = True,
         s = np.clip(s + step_v[:, 1], -Z_MAX, Z_MAX)
         eps = np.clip(eps + step_v[:, 2], -D_SCALE_MAX, D_SCALE_MAX) if d_scale else eps
 
-    pred = _predict(lines, z, s, eps, lam)
+    pred = _predict(lines, z, s, eps, lam)[0]
     pick, delta, matched = nearest(pred, tol)
     lo_tt, hi_tt = peaks.two_theta_range
     inside = np.isfinite(pred) & (pred >= lo_tt) & (pred <= hi_tt) & (inten > 0)
@@ -300,13 +305,13 @@ def _hough_start(obs: np.ndarray, lines: LineSet, tol: np.ndarray, *, d_scale: b
     with np.errstate(invalid="ignore", divide="ignore"):
         x = wavelength / (2.0 * d[:, :, None] * (1.0 + grid_e[None, None, :]))
         tt = np.where(x <= 1.0, 2.0 * np.degrees(np.arcsin(np.clip(x, 0.0, 1.0))), np.nan)  # (C, g, E)
-    n = obs.size
-    hi = np.searchsorted(obs, np.where(np.isfinite(tt), tt, -1.0))[..., None] + np.arange(-2, 2)  # (C, g, E, 4)
-    inside = (hi >= 0) & (hi < n)
-    j = np.clip(hi, 0, n - 1)
-    zz = obs[j] - tt[..., None]
-    good = inside & (np.abs(zz) <= Z_MAX + tol[j]) & (inten > 0)[:, :, None, None]
-    good &= np.isfinite(zz)
+    # The four observed peaks around each position, from a list padded with two infinite
+    # peaks at each end (infinite or NaN offsets never vote).
+    obs_pad = np.concatenate([[-np.inf, -np.inf], obs, [np.inf, np.inf]])
+    reach = np.concatenate([[0.0, 0.0], Z_MAX + tol, [0.0, 0.0]])
+    j = np.searchsorted(obs, np.where(np.isfinite(tt), tt, -1.0))[..., None] + np.arange(4)  # (C, g, E, 4)
+    zz = np.take(obs_pad, j) - tt[..., None]
+    good = (np.abs(zz) <= np.take(reach, j)) & (inten > 0)[:, :, None, None]
     n_e, n_b = grid_e.size, 2 * n_z + 1
     zbin = np.rint(zz[good] / z_step).astype(np.int64) + n_z
     c_i, k_i, e_i, _ = np.nonzero(good)
@@ -399,12 +404,16 @@ def gather_lines(index, rows: np.ndarray, wavelength: float, d_range: tuple[floa
     start = index.line_start[rows]
     count = index.line_start[rows + 1] - start
     idx, owner = expand_ranges(start, count)
-    offs = idx - start[owner]
     d = np.asarray(index.d[idx], dtype=np.float64)
+    # Most of an entry's lines lie outside the scanned range: drop them before computing
+    # intensities.
+    keep = (d >= d_range[0]) & (d <= d_range[1])
+    idx, owner, d = idx[keep], owner[keep], d[keep]
+    offs = idx - start[owner]
     tt, inten = index.line_intensity(rows[owner], idx, wavelength, monochromator_two_theta=monochromator_two_theta)
-    keep = (d >= d_range[0]) & (d <= d_range[1]) & (inten > 0) & np.isfinite(tt)
+    keep = (inten > 0) & np.isfinite(tt)
     owner, offs, d, tt, inten = owner[keep], offs[keep], d[keep], tt[keep], inten[keep]
-    order = np.lexsort((-inten, owner))
+    order = _strongest_first(owner, inten)
     owner, offs, d, tt, inten = owner[order], offs[order], d[order], tt[order], inten[order]
     first = np.searchsorted(owner, owner, side="left")
     rank = np.arange(owner.size) - first
@@ -418,3 +427,14 @@ def gather_lines(index, rows: np.ndarray, wavelength: float, d_range: tuple[floa
     at = (owner[sel], rank[sel])
     out_d[at], out_tt[at], out_i[at], out_line[at] = d[sel], tt[sel], inten[sel], offs[sel]
     return LineSet(rows=rows, d=out_d, two_theta=out_tt, intensity=out_i, line=out_line)
+
+
+def _strongest_first(owner: np.ndarray, inten: np.ndarray) -> np.ndarray:
+    """Order that groups lines by their (sorted, non-decreasing) owner and puts each owner's
+    lines strongest first, equal intensities in their given order — ``lexsort((-inten,
+    owner))`` with one stable sort of a float key: owner + (1 − I/I_max of the owner)/2."""
+    if owner.size == 0:
+        return np.zeros(0, dtype=np.int64)
+    starts = np.flatnonzero(np.r_[True, owner[1:] != owner[:-1]])
+    imax = np.repeat(np.maximum.reduceat(inten, starts), np.diff(np.r_[starts, owner.size]))
+    return np.argsort(owner + 0.5 * (1.0 - inten / imax), kind="stable")

@@ -234,3 +234,18 @@ def test_a_candidate_scores_the_same_alone_or_in_company(rows):
     alone = [score_entries(peaks, INDEX, [i])[0] for i in ids]
     # Padding to a common line count must not leak between candidates: equal to rounding.
     np.testing.assert_allclose([c.score for c in together], [c.score for c in alone], rtol=1e-9, atol=1e-9)
+
+
+@settings(max_examples=60, deadline=None)
+@given(
+    counts=st.lists(st.integers(1, 12), min_size=1, max_size=8),
+    levels=st.lists(st.sampled_from([1.0, 2.5, 40.0, 100.0, 1e-3, 7e5]), min_size=96, max_size=96),
+)
+def test_strongest_first_orders_as_numpy_lexsort(counts, levels):
+    """The one-key sort gives numpy's two-key lexsort order (owner, then −intensity, ties
+    in given order); intensities drawn from a few levels so that exact ties occur."""
+    from refdb.match.score import _strongest_first
+
+    owner = np.repeat(3 * np.arange(len(counts)), counts)  # owners with gaps, as after filtering
+    inten = np.asarray(levels[: owner.size]) * (1.0 + owner)
+    np.testing.assert_array_equal(_strongest_first(owner, inten), np.lexsort((-inten, owner)))
