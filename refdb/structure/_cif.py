@@ -112,13 +112,18 @@ def parse_block(source: CifSource, name_hint: str | None = None) -> gemmi.cif.Bl
 
 
 def value(block: gemmi.cif.Block, *tags: str) -> str | None:
-    """The first of ``tags`` that has a real value, unquoted; None for absent, '?' or '.'."""
+    """The first of ``tags`` that has a real value, unquoted; None for absent, '?' or '.'.
+
+    A quoted question mark or full stop, alone apart from blanks (``' ?'``, as some
+    database files write an unknown name), counts as unknown too: no entry should be
+    called "?".
+    """
     for tag in tags:
         raw = block.find_value(tag)
         if raw is None or raw in ("?", "."):
             continue
         text = " ".join(gemmi.cif.as_string(raw).split())
-        if text:
+        if text and text not in ("?", "."):
             return text
     return None
 

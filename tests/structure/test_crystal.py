@@ -126,3 +126,13 @@ def test_density_of_silicon():
     c = read_crystal(cubic(5.431144, "F d -3 m:1", [("Si1", "Si", 0, 0, 0)]))
     expected = 8 * 28.0855 / (6.02214076e23 * (5.431144e-8) ** 3)
     assert c.density == pytest.approx(expected, rel=1e-4)
+
+
+@pytest.mark.parametrize("placeholder", ["?", "' ?'", "'.'", "'  '"])
+def test_an_unknown_name_falls_back_to_the_formula(placeholder):
+    """The CIF 1.1 syntax (IUCr) gives an unquoted '?' for an unknown value and '.' for an
+    inapplicable one (from memory); quoted and padded forms of them, as some database files
+    hold, and a blank string are no name either."""
+    text = cubic(4.11, "P m -3 m", [("Cs1", "Cs", 0, 0, 0), ("Cl1", "Cl", 0.5, 0.5, 0.5)],
+                 formula="Cl Cs", extra=f"_chemical_name_systematic {placeholder}")
+    assert read_crystal(text).name == "Cl Cs"
