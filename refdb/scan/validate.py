@@ -13,6 +13,10 @@ from refdb.scan.types import Scan
 
 #: Fewest points a scan may have; fewer cannot carry a background and a peak profile.
 MIN_POINTS = 20
+#: A scan whose every 2θ lies below π (degrees) is taken for one in radians: no powder
+#: reflection of a crystal with d under 28 Å lies there even with Cu Kα (Bragg's law), and
+#: phase-identification scans start at a few degrees (common practice, no source).
+RADIAN_LIMIT = float(np.pi)
 #: A file with at most this many rows, d-like first column and 0–100 intensities is a peak list.
 _PEAK_LIST_MAX_ROWS = 200
 
@@ -53,7 +57,8 @@ def make_scan(
     ------
     InputError
         The data look like a peak list, have fewer than 20 points, hold NaN or infinite values,
-        negative counts or uncertainties, 2θ outside (0°, 180°), or repeated 2θ values.
+        negative counts or uncertainties, 2θ outside (0°, 180°), every 2θ below π (radians),
+        or repeated 2θ values.
     """
     tt = np.asarray(two_theta, dtype=float)
     y = np.asarray(counts, dtype=float)
@@ -83,6 +88,11 @@ def make_scan(
         raise InputError(
             f"{source} line {lines[i]}: 2θ = {tt[i]:g}° is outside (0°, 180°)",
             "the first column must be 2θ in degrees; convert d-spacings, Q or radians first",
+        )
+    if tt.max() < RADIAN_LIMIT:
+        raise InputError(
+            f"{source}: 2θ runs from {tt.min():g} to {tt.max():g}, all below π — this looks like radians",
+            "the first column must be 2θ in degrees (multiply radians by 180/π)",
         )
     order = np.argsort(tt, kind="stable")
     if np.any(np.diff(order) != 1):

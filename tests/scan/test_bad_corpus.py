@@ -31,6 +31,7 @@ EXPECTED = {
     "duplicate_angles.xy": "lines 10 and 11: 2θ = 20.14° appears twice",
     "too_few_points.xy": "has only 10 points",
     "angle_out_of_range.xy": "is outside (0°, 180°)",
+    "radians.xy": "2θ runs from 0.17453 to 1.37881, all below π — this looks like radians",
     "d_list.txt": "looks like a peak list (d-spacings",
     "one_column.xy": "line 3: 1 column where 2 are needed",
     "ragged_rows.xy": "line 33: expected 2 columns, found 1",
