@@ -67,7 +67,7 @@ def make_scan(
     _refuse_peak_list(tt, y, source)
     if tt.size < MIN_POINTS:
         raise InputError(
-            f"{source} has only {tt.size} points; a scan needs at least {MIN_POINTS}",
+            f"{source} has only {tt.size} point{'' if tt.size == 1 else 's'}; a scan needs at least {MIN_POINTS}",
             "for a list of peak positions use --peak-table",
         )
     columns = {"2θ": tt, "counts": y} if sigma is None else {"2θ": tt, "counts": y, "uncertainty": sigma}
