@@ -120,12 +120,16 @@ def value(block: gemmi.cif.Block, *tags: str) -> str | None:
     """
     for tag in tags:
         raw = block.find_value(tag)
-        if raw is None or raw in ("?", "."):
-            continue
-        text = " ".join(gemmi.cif.as_string(raw).split())
-        if text and text not in ("?", "."):
+        text = None if raw is None else _known(raw)
+        if text:
             return text
     return None
+
+
+def _known(raw: str) -> str:
+    """A raw CIF value unquoted, its blanks collapsed; "" for '?' or '.', quoted or not."""
+    text = " ".join(gemmi.cif.as_string(raw).split())
+    return "" if text in ("?", ".") else text
 
 
 def number(block: gemmi.cif.Block, tag: str, label: str = "CIF") -> float | None:
@@ -140,13 +144,8 @@ def number(block: gemmi.cif.Block, tag: str, label: str = "CIF") -> float | None
 
 
 def values(block: gemmi.cif.Block, tag: str) -> list[str]:
-    """All values of a looped item, unquoted, without '?' and '.'."""
-    out = []
-    for raw in block.find_values(tag):
-        if raw in ("?", "."):
-            continue
-        out.append(" ".join(gemmi.cif.as_string(raw).split()))
-    return out
+    """All values of a looped item, unquoted, without '?', '.' and blanks."""
+    return [text for raw in block.find_values(tag) if (text := _known(raw))]
 
 
 def citation(block: gemmi.cif.Block) -> str | None:
