@@ -120,8 +120,7 @@ def value(block: gemmi.cif.Block, *tags: str) -> str | None:
     """
     for tag in tags:
         raw = block.find_value(tag)
-        text = None if raw is None else _known(raw)
-        if text:
+        if raw is not None and (text := _known(raw)):
             return text
     return None
 

@@ -14,23 +14,29 @@ import pytest
 
 from refdb.match.mixture import ABSENT_SIGMA, STRONG_LINES_CHECKED, _check_lines, _line_objection
 from refdb.match.refine import PhaseFit, RefinementResult
-
-from ._mixture_data import cu_radiation
+from refdb.radiation import radiation_for
 
 X = np.arange(20.0, 80.0 + 1e-9, 0.02)
 FWHM = 0.1
+#: Standard deviation of a Gaussian of that FWHM.
+GAUSS_SD = FWHM / (2.0 * np.sqrt(2.0 * np.log(2.0)))
 BACKGROUND = 100.0
+#: Cu Kα1 only: a Kα2 satellite would be a second maximum of each line.
+CU_KA1 = radiation_for("Cu", alpha2=False)
 
 
 def _fit(heights: list[float], seen: list[float]) -> RefinementResult:
     """One phase with lines of ``heights`` (counts) at 25°, 31°, 37°, …; the scan shows
     ``seen`` × each line on the background."""
-    s = FWHM / (2.0 * np.sqrt(2.0 * np.log(2.0)))
-    lines = [h * np.exp(-0.5 * ((X - (25.0 + 6.0 * k)) / s) ** 2) for k, h in enumerate(heights)]
+    lines = [h * np.exp(-0.5 * ((X - (25.0 + 6.0 * k)) / GAUSS_SD) ** 2) for k, h in enumerate(heights)]
     prof = np.sum(lines, axis=0)
     observed = BACKGROUND + np.sum([f * ln for f, ln in zip(seen, lines, strict=True)], axis=0)
     nan = float("nan")
-    phase = PhaseFit(0, "P", "P", 1, "1", 1.0, nan, 0.0, nan, 0.0, nan, 1.0, nan, 1.0, nan, 1.0, nan, prof)
+    phase = PhaseFit(
+        index=0, name="P", formula="P", entry_id=1, source_id="1", scale=1.0, u_scale=nan, zero_shift=0.0,
+        u_zero_shift=nan, displacement=0.0, u_displacement=nan, d_scale=1.0, u_d_scale=nan, width_scale=1.0,
+        u_width_scale=nan, texture_ratio=1.0, u_texture_ratio=nan, profile=prof,
+    )
     return RefinementResult(
         phases=(phase,), two_theta=X, observed=observed, sigma=np.sqrt(observed),
         calculated=BACKGROUND + prof, background=np.full(X.size, BACKGROUND),
@@ -40,9 +46,7 @@ def _fit(heights: list[float], seen: list[float]) -> RefinementResult:
 
 
 def _check(heights, seen):
-    # Cu Kα1 only: a Kα2 satellite would be a second maximum of each line.
-    rad = cu_radiation()
-    return _check_lines(_fit(heights, seen), 0, type(rad)("Cu", rad.wavelengths[:1], rad.weights[:1], ("Ka1",)))
+    return _check_lines(_fit(heights, seen), 0, CU_KA1)
 
 
 def test_a_strong_line_with_nothing_there_rejects_a_phase_of_few_lines():
@@ -71,8 +75,7 @@ def test_a_phase_of_many_lines_may_lack_one():
 def _height_for(k: float) -> float:
     """Line height whose counts summed over the judged window (±½ FWHM: 5 points) are k
     standard deviations of the background's noise there (5 points of σ = √100)."""
-    s = FWHM / (2.0 * np.sqrt(2.0 * np.log(2.0)))
-    w = np.exp(-0.5 * ((np.arange(-2, 3) * 0.02) / s) ** 2)
+    w = np.exp(-0.5 * ((np.arange(-2, 3) * 0.02) / GAUSS_SD) ** 2)
     return k * np.sqrt(5 * BACKGROUND) / w.sum()
 
 
